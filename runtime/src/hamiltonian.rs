@@ -1,0 +1,213 @@
+//! The time-dependent Hamiltonian in a chosen frame, as the solvers see it: a constant diagonal,
+//! chirp-driven diagonal terms and pulse-driven couplings with their residual rotation.
+
+use crate::field::Chirp;
+use crate::linalg::C64;
+use crate::sequence::Pulse;
+
+/// One coupling: H[upper, lower] += amp · env_p(t) · exp(−i(ν t + Σ_f m_f χ_f(t))), plus its
+/// Hermitian conjugate at H[lower, upper].
+#[derive(Clone, Debug)]
+pub struct Term {
+    /// Row index (the upper level).
+    pub upper: usize,
+    /// Column index (the lower level).
+    pub lower: usize,
+    /// Complex amplitude (rad/s), including ½Ω, the pulse's phase and amplitude factor.
+    pub amp: C64,
+    /// Index of the pulse whose envelope multiplies it.
+    pub pulse: usize,
+    /// Residual rotation ν (rad/s); 0 for a term that is static in the frame.
+    pub nu: f64,
+    /// Chirp phases entering the rotation: (field index, multiplicity m_f).
+    pub chirp: Vec<(usize, i32)>,
+    /// dν/dω_f: how ν moves when the carrier of the term's own field is retuned (±1 or 0 in
+    /// the exact frame, −m_f in the rotating frame).
+    pub tuning: i32,
+}
+
+impl Term {
+    /// Whether the term has no residual time dependence besides its envelope.
+    pub fn is_static(&self) -> bool {
+        self.nu == 0.0 && self.chirp.is_empty()
+    }
+}
+
+/// A chirp-driven diagonal term: H[level, level] −= multiplicity · δ_field(t).
+#[derive(Clone, Debug)]
+pub struct DiagChirp {
+    /// Level index.
+    pub level: usize,
+    /// Field index.
+    pub field: usize,
+    /// How many times the field's frequency enters the level's frame phase.
+    pub multiplicity: i32,
+}
+
+/// H(t)/ħ in rad/s for one scenario in one frame.
+#[derive(Clone, Debug)]
+pub struct Hamiltonian {
+    pub(crate) n: usize,
+    /// frame_phases[k][f]: how many times field f's phase enters level k's frame phase.
+    pub(crate) frame_phases: Vec<Vec<i32>>,
+    pub(crate) diag: Vec<f64>,
+    pub(crate) diag_chirps: Vec<DiagChirp>,
+    pub(crate) terms: Vec<Term>,
+    pub(crate) pulses: Vec<Pulse>,
+    pub(crate) chirps: Vec<Option<Chirp>>,
+    pub(crate) duration: f64,
+    pub(crate) breakpoints: Vec<f64>,
+}
+
+impl Hamiltonian {
+    /// Dimension.
+    pub fn n(&self) -> usize {
+        self.n
+    }
+    /// Constant diagonal (rad/s).
+    pub fn diagonal(&self) -> &[f64] {
+        &self.diag
+    }
+    /// The couplings kept in this frame.
+    pub fn terms(&self) -> &[Term] {
+        &self.terms
+    }
+    /// How many times each field's phase enters each level's frame phase (`[level][field]`);
+    /// all zero in the exact frame. Laser phase noise of field f dephases coherence ρ_kj in
+    /// proportion to (n_kf − n_jf)².
+    pub fn frame_phases(&self) -> &[Vec<i32>] {
+        &self.frame_phases
+    }
+    /// Duration of the sequence (s).
+    pub fn duration(&self) -> f64 {
+        self.duration
+    }
+    /// Times where the Hamiltonian may jump or kink, sorted, from 0 to the end.
+    pub fn breakpoints(&self) -> &[f64] {
+        &self.breakpoints
+    }
+
+    #[inline]
+    fn term_value(&self, term: &Term, t: f64) -> C64 {
+        let env = self.pulses[term.pulse].value_at(t);
+        if env == 0.0 {
+            return C64::new(0.0, 0.0);
+        }
+        if term.is_static() {
+            return term.amp * env;
+        }
+        let mut phase = term.nu * t;
+        for &(f, m) in &term.chirp {
+            if let Some(c) = &self.chirps[f] {
+                phase += m as f64 * c.phase(t);
+            }
+        }
+        let (s, c) = phase.sin_cos();
+        term.amp * env * C64::new(c, -s)
+    }
+
+    #[inline]
+    fn diag_value(&self, k: usize, t: f64) -> f64 {
+        let mut d = self.diag[k];
+        for dc in &self.diag_chirps {
+            if dc.level == k
+                && let Some(c) = &self.chirps[dc.field]
+            {
+                d -= dc.multiplicity as f64 * c.detuning(t);
+            }
+        }
+        d
+    }
+
+    /// Write H(t) (rad/s) into a dense row-major `n × n` buffer.
+    pub fn fill(&self, t: f64, h: &mut [C64]) {
+        let n = self.n;
+        h[..n * n].fill(C64::new(0.0, 0.0));
+        for k in 0..n {
+            h[k * n + k] = C64::new(self.diag_value(k, t), 0.0);
+        }
+        for term in &self.terms {
+            let v = self.term_value(term, t);
+            h[term.upper * n + term.lower] += v;
+            h[term.lower * n + term.upper] += v.conj();
+        }
+    }
+
+    /// dy = −i H(t) y for a state vector, from the sparse terms (no dense matrix).
+    #[inline]
+    pub fn apply(&self, t: f64, y: &[C64], dy: &mut [C64]) {
+        if self.diag_chirps.is_empty() {
+            for k in 0..self.n {
+                dy[k] = y[k] * self.diag[k];
+            }
+        } else {
+            for k in 0..self.n {
+                dy[k] = y[k] * self.diag_value(k, t);
+            }
+        }
+        for term in &self.terms {
+            let v = self.term_value(term, t);
+            if v == C64::new(0.0, 0.0) {
+                continue;
+            }
+            dy[term.upper] += v * y[term.lower];
+            dy[term.lower] += v.conj() * y[term.upper];
+        }
+        for d in dy.iter_mut().take(self.n) {
+            *d = C64::new(d.im, -d.re); // multiply by −i
+        }
+    }
+
+    /// Retune field `field`'s carrier by `shift` (rad/s) without rebuilding the frame: the
+    /// levels it dresses move on the diagonal and the residual rotations follow. This is exact:
+    /// the frame's structure does not depend on the carrier, only its numbers do.
+    pub fn shift_field_frequency(&mut self, field: usize, shift: f64) {
+        for k in 0..self.n {
+            if let Some(&m) = self.frame_phases[k].get(field) {
+                self.diag[k] -= m as f64 * shift;
+            }
+        }
+        for term in &mut self.terms {
+            if self.pulses[term.pulse].field() == field {
+                term.nu += term.tuning as f64 * shift;
+            }
+        }
+    }
+
+    /// Whether H is constant on [a, b]: every term active there is static with a constant
+    /// envelope, and no chirp moves the diagonal.
+    pub fn is_constant_on(&self, a: f64, b: f64) -> bool {
+        if !self.diag_chirps.is_empty() {
+            return false;
+        }
+        let tol = 1e-12 * self.duration.max(1e-300);
+        self.terms.iter().all(|term| {
+            let p = &self.pulses[term.pulse];
+            if p.end() <= a + tol || p.start() >= b - tol {
+                return true; // inactive on the segment
+            }
+            if !term.is_static() {
+                return false;
+            }
+            match p.envelope().constant_pieces() {
+                Some(pieces) => pieces
+                    .iter()
+                    .any(|&(s, e, _)| s + p.start() <= a + tol && e + p.start() >= b - tol),
+                None => false,
+            }
+        })
+    }
+
+    /// The fastest rotation of any term or diagonal entry plus the largest coupling (rad/s): an
+    /// upper bound on the frequencies a step must resolve.
+    pub fn fastest_rate(&self) -> f64 {
+        let nu = self.terms.iter().map(|t| t.nu.abs()).fold(0.0, f64::max);
+        let d = self.diag.iter().map(|d| d.abs()).fold(0.0, f64::max);
+        let amp: f64 = self
+            .terms
+            .iter()
+            .map(|t| t.amp.norm() * self.pulses[t.pulse].envelope().max_abs())
+            .fold(0.0, f64::max);
+        nu.max(d) + 2.0 * amp
+    }
+}

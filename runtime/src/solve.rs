@@ -1,0 +1,1053 @@
+//! Solving a scenario: the problem description, method choice, the propagation segment by segment
+//! (exact eigen-propagation, Runge–Kutta, commutator-free Magnus, Liouvillian exponential), the
+//! steady state, and the diagnostics every result carries.
+
+use std::cell::RefCell;
+
+use crate::atom::Atom;
+use crate::error::Error;
+use crate::field::Field;
+use crate::frame::{self, Frame, FrameReport};
+use crate::hamiltonian::Hamiltonian;
+use crate::linalg::{C64, HermitianEigen, matmul, matmul_adjoint};
+use crate::lindblad::{self, Dephasing, Dissipator, Jump};
+use crate::observe::Observable;
+use crate::ode::{self, RkConfig, Scheme};
+use crate::sequence::{Pulse, Sequence};
+use crate::state::State;
+
+/// How to propagate.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum Method {
+    /// Choose per segment: exact propagation where H is constant, Runge–Kutta elsewhere.
+    Auto,
+    /// Exact propagation of piecewise-constant Hamiltonians by Hermitian eigendecomposition
+    /// (pure or closed mixed states).
+    Eigen,
+    /// Dormand–Prince 5(4), adaptive.
+    DormandPrince54,
+    /// Dormand–Prince 8(5,3) (DOP853), adaptive.
+    DormandPrince853,
+    /// Fourth-order commutator-free Magnus integrator with step doubling (pure states).
+    Magnus4,
+    /// exp(𝓛t) of the constant Liouvillian on each segment (density matrices).
+    LiouvillianExp,
+}
+
+impl Method {
+    /// Short name used in diagnostics.
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::Auto => "auto",
+            Method::Eigen => "eigen",
+            Method::DormandPrince54 => "dp54",
+            Method::DormandPrince853 => "dop853",
+            Method::Magnus4 => "magnus4",
+            Method::LiouvillianExp => "liouvillian-exp",
+        }
+    }
+}
+
+/// Error tolerances of the adaptive methods.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Tolerance {
+    /// Relative tolerance.
+    pub rtol: f64,
+    /// Absolute tolerance (on amplitudes or density-matrix entries).
+    pub atol: f64,
+}
+
+impl Default for Tolerance {
+    fn default() -> Self {
+        Self {
+            rtol: 1e-8,
+            atol: 1e-10,
+        }
+    }
+}
+
+/// When to record observables.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Samples {
+    /// At the end of the sequence only.
+    Final,
+    /// At these times (s), sorted, within [0, duration].
+    Times(Vec<f64>),
+    /// At `n` equally spaced times from 0 to the end (n ≥ 2).
+    Uniform(usize),
+}
+
+/// Everything needed to evolve one scenario.
+#[derive(Clone, Debug)]
+pub struct Problem {
+    /// The atom.
+    pub atom: Atom,
+    /// The fields; pulses refer to them by index.
+    pub fields: Vec<Field>,
+    /// The pulse sequence.
+    pub sequence: Sequence,
+    /// The frame.
+    pub frame: Frame,
+    /// The initial state.
+    pub initial: State,
+    /// What to record.
+    pub observables: Vec<Observable>,
+    /// When to record it.
+    pub samples: Samples,
+    /// The method.
+    pub method: Method,
+    /// Tolerances of adaptive methods.
+    pub tolerance: Tolerance,
+    /// Step limit of adaptive methods (per solve).
+    pub max_steps: u64,
+}
+
+impl Problem {
+    /// A problem in the rotating frame, method auto, default tolerances, final sample only.
+    pub fn new(
+        atom: Atom,
+        fields: Vec<Field>,
+        sequence: Sequence,
+        initial: State,
+        observables: Vec<Observable>,
+    ) -> Self {
+        Self {
+            atom,
+            fields,
+            sequence,
+            frame: Frame::rotating(),
+            initial,
+            observables,
+            samples: Samples::Final,
+            method: Method::Auto,
+            tolerance: Tolerance::default(),
+            max_steps: 10_000_000,
+        }
+    }
+}
+
+/// One recorded observable over the sample times.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Series {
+    /// Label, e.g. `population(e)`.
+    pub label: String,
+    /// Real components per sample.
+    pub width: usize,
+    /// `width` values per sample, sample-major.
+    pub values: Vec<f64>,
+}
+
+/// How a result was computed and how far it can be trusted.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Diagnostics {
+    /// The method(s) actually used, e.g. `eigen` or `eigen+dop853`.
+    pub method: String,
+    /// Why, when chosen automatically.
+    pub reason: String,
+    /// Relative tolerance of adaptive steps (0 when none were taken).
+    pub rtol: f64,
+    /// Absolute tolerance of adaptive steps.
+    pub atol: f64,
+    /// Accepted steps of adaptive methods; segments for exact ones.
+    pub steps: u64,
+    /// Rejected steps.
+    pub rejected: u64,
+    /// Hamiltonian or right-hand-side evaluations.
+    pub evaluations: u64,
+    /// Worst |norm − 1| (pure) or |Tr ρ − 1| (mixed) seen at the samples and the end.
+    pub norm_drift: f64,
+}
+
+/// The outcome of [`solve`].
+#[derive(Clone, Debug)]
+pub struct Solution {
+    /// Sample times (s).
+    pub times: Vec<f64>,
+    /// One series per observable, in the problem's order.
+    pub series: Vec<Series>,
+    /// The state at the end of the sequence.
+    pub final_state: State,
+    /// Method and accuracy figures.
+    pub diagnostics: Diagnostics,
+    /// Every term of the frame and what was done with it.
+    pub frame: FrameReport,
+}
+
+impl Solution {
+    /// The final values of every observable, concatenated.
+    pub fn final_values(&self) -> Vec<f64> {
+        let k = self.times.len();
+        self.series
+            .iter()
+            .flat_map(|s| s.values[(k - 1) * s.width..k * s.width].iter().copied())
+            .collect()
+    }
+}
+
+/// A problem with its frame built and checked, ready to run many times (e.g. across a
+/// detuning sweep with [`Prepared::shift_field_frequency`]).
+#[derive(Clone, Debug)]
+pub struct Prepared {
+    atom: Atom,
+    ham: Hamiltonian,
+    report: FrameReport,
+    dissipator: Option<Dissipator>,
+    initial: State,
+    observables: Vec<Observable>,
+    samples: Vec<f64>,
+    method: Method,
+    tolerance: Tolerance,
+    max_steps: u64,
+}
+
+/// The dissipator of an atom plus the laser-linewidth dephasing of the fields in this frame;
+/// `None` when there is no dissipation at all.
+fn dissipator(
+    atom: &Atom,
+    fields: &[Field],
+    ham: &Hamiltonian,
+    frame: Frame,
+    active: &[Pulse],
+) -> Result<Option<Dissipator>, Error> {
+    let jumps: Vec<Jump> = atom
+        .decays()
+        .iter()
+        .filter(|d| d.rate > 0.0)
+        .map(|d| Jump {
+            from: d.from,
+            to: d.to,
+            rate: d.rate,
+        })
+        .collect();
+    let dephasing: Vec<Dephasing> = atom
+        .dephasing()
+        .iter()
+        .filter(|d| d.rate > 0.0)
+        .map(|d| Dephasing {
+            level: d.level,
+            rate: d.rate,
+        })
+        .collect();
+    let mut noise = Vec::new();
+    for (fi, f) in fields.iter().enumerate() {
+        if f.linewidth() == 0.0 || !active.iter().any(|p| p.field() == fi) {
+            continue;
+        }
+        if !f.linewidth().is_finite() || f.linewidth() < 0.0 {
+            return Err(Error::OutOfRange {
+                what: format!("the linewidth of field `{}`", f.name()),
+                value: f.linewidth(),
+                hint: "a finite, non-negative FWHM in rad/s",
+            });
+        }
+        if !matches!(frame, Frame::Rotating { .. }) {
+            return Err(Error::MethodUnsuitable {
+                method: "exact frame",
+                hint: format!(
+                    "field `{}` has a linewidth, which is modelled as phase diffusion in the rotating frame; use the rotating frame",
+                    f.name()
+                ),
+            });
+        }
+        let weights: Vec<f64> = ham
+            .frame_phases()
+            .iter()
+            .map(|row| row[fi] as f64)
+            .collect();
+        noise.push(lindblad::PhaseNoise {
+            rate: f.linewidth(),
+            weights,
+        });
+    }
+    if jumps.is_empty() && dephasing.is_empty() && noise.is_empty() {
+        return Ok(None);
+    }
+    Ok(Some(
+        Dissipator::new(atom.n(), jumps, dephasing)?.with_phase_noise(noise)?,
+    ))
+}
+
+impl Prepared {
+    /// Build the frame, the dissipator and the sample list; check every input.
+    pub fn new(p: &Problem) -> Result<Self, Error> {
+        let n = p.atom.n();
+        if p.initial.n() != n || matches!(&p.initial, State::Mixed(r) if r.len() != n * n) {
+            return Err(Error::Shape {
+                what: "the initial state",
+                expected: n,
+                got: p.initial.n(),
+            });
+        }
+        let (rtol, atol) = (p.tolerance.rtol, p.tolerance.atol);
+        if !(rtol.is_finite() && rtol > 0.0 && rtol < 1.0) || !(atol.is_finite() && atol > 0.0) {
+            return Err(Error::OutOfRange {
+                what: "a solver tolerance".into(),
+                value: if rtol.is_finite() && rtol > 0.0 && rtol < 1.0 {
+                    atol
+                } else {
+                    rtol
+                },
+                hint: "0 < rtol < 1 and atol > 0",
+            });
+        }
+        let observables = p
+            .observables
+            .iter()
+            .map(|o| o.checked(&p.atom))
+            .collect::<Result<Vec<_>, _>>()?;
+        let (ham, report) = frame::build(&p.atom, &p.fields, &p.sequence, p.frame)?;
+        let dissipator = dissipator(&p.atom, &p.fields, &ham, p.frame, p.sequence.pulses())?;
+        let t_end = p.sequence.duration();
+        let samples = match &p.samples {
+            Samples::Final => vec![t_end],
+            Samples::Uniform(k) => {
+                if *k < 2 {
+                    return Err(Error::OutOfRange {
+                        what: "the number of samples".into(),
+                        value: *k as f64,
+                        hint: "at least 2 (start and end)",
+                    });
+                }
+                (0..*k)
+                    .map(|i| t_end * i as f64 / (*k - 1) as f64)
+                    .collect()
+            }
+            Samples::Times(ts) => {
+                if ts.is_empty() {
+                    return Err(Error::OutOfRange {
+                        what: "the number of samples".into(),
+                        value: 0.0,
+                        hint: "give at least one sample time",
+                    });
+                }
+                for (i, &t) in ts.iter().enumerate() {
+                    if !t.is_finite() || t < 0.0 || t > t_end * (1.0 + 1e-12) {
+                        return Err(Error::OutOfRange {
+                            what: format!("sample time #{i}"),
+                            value: t,
+                            hint: "sample times lie within the sequence, from 0 to its end",
+                        });
+                    }
+                    if i > 0 && t < ts[i - 1] {
+                        return Err(Error::OutOfRange {
+                            what: format!("sample time #{i}"),
+                            value: t,
+                            hint: "sample times must be sorted in increasing order",
+                        });
+                    }
+                }
+                ts.iter().map(|&t| t.min(t_end)).collect()
+            }
+        };
+        Ok(Self {
+            atom: p.atom.clone(),
+            ham,
+            report,
+            dissipator,
+            initial: p.initial.clone(),
+            observables,
+            samples,
+            method: p.method,
+            tolerance: p.tolerance,
+            max_steps: p.max_steps,
+        })
+    }
+
+    /// Retune a field's carrier by `shift` (rad/s) (see [`Hamiltonian::shift_field_frequency`]).
+    pub fn shift_field_frequency(&mut self, field: usize, shift: f64) {
+        self.ham.shift_field_frequency(field, shift);
+    }
+
+    /// The Hamiltonian in the chosen frame.
+    pub fn hamiltonian(&self) -> &Hamiltonian {
+        &self.ham
+    }
+
+    /// Run and keep every sample.
+    pub fn run(&self) -> Result<Solution, Error> {
+        let mut rec = Recorder::new(&self.atom, &self.observables, self.samples.len());
+        let (final_state, diagnostics) = self.propagate(&mut rec)?;
+        let series = self
+            .observables
+            .iter()
+            .zip(rec.values)
+            .map(|(o, values)| Series {
+                label: o.label(&self.atom),
+                width: o.width(),
+                values,
+            })
+            .collect();
+        Ok(Solution {
+            times: self.samples.clone(),
+            series,
+            final_state,
+            diagnostics,
+            frame: self.report.clone(),
+        })
+    }
+
+    /// Run and return only the final values of the observables (what a large sweep keeps).
+    pub fn run_final(&self) -> Result<Vec<f64>, Error> {
+        let mut rec = Recorder::final_only(&self.atom, &self.observables);
+        let (state, _) = self.propagate(&mut rec)?;
+        let mut out = Vec::new();
+        for o in &self.observables {
+            o.evaluate(&self.atom, &state, &mut out);
+        }
+        Ok(out)
+    }
+
+    fn propagate(&self, rec: &mut Recorder) -> Result<(State, Diagnostics), Error> {
+        let density = self.dissipator.is_some() || matches!(self.initial, State::Mixed(_));
+        let n = self.atom.n();
+        let mut stats = Stats::default();
+        let cfg = RkConfig {
+            rtol: self.tolerance.rtol,
+            atol: self.tolerance.atol,
+            max_steps: self.max_steps,
+            ..RkConfig::default()
+        };
+        let mut y = match &self.initial {
+            State::Pure(c) if !density => c.clone(),
+            s => s.to_density(),
+        };
+        let bps = self.ham.breakpoints();
+        let mut next = 0; // next sample index
+        while next < self.samples.len() && self.samples[next] <= bps[0] {
+            rec.record(next, &y, density);
+            next += 1;
+        }
+        let mut h_init = None;
+        for w in bps.windows(2) {
+            let (a, b) = (w[0], w[1]);
+            if b <= a {
+                continue;
+            }
+            let first = next;
+            while next < self.samples.len() && self.samples[next] <= b {
+                next += 1;
+            }
+            let samples = &self.samples[first..next];
+            let constant = self.ham.is_constant_on(a, b);
+            let method = self.segment_method(constant, density)?;
+            stats.used(method);
+            let mut on_sample =
+                |i: usize, _t: f64, state: &[C64]| rec.record(first + i, state, density);
+            match method {
+                Method::Eigen if !density => {
+                    eigen_pure(&self.ham, a, b, &mut y, samples, &mut on_sample)?
+                }
+                Method::Eigen => eigen_mixed(&self.ham, a, b, &mut y, samples, &mut on_sample)?,
+                Method::LiouvillianExp => {
+                    let d = self
+                        .dissipator
+                        .clone()
+                        .unwrap_or(Dissipator::new(n, vec![], vec![])?);
+                    liouvillian_exp(&self.ham, &d, a, b, &mut y, samples, &mut on_sample)?
+                }
+                Method::Magnus4 => {
+                    let s = magnus4(
+                        &self.ham,
+                        a,
+                        b,
+                        &mut y,
+                        samples,
+                        &self.tolerance,
+                        self.max_steps,
+                        &mut h_init,
+                        &mut on_sample,
+                    )?;
+                    stats.add(s.0, s.1, s.2);
+                }
+                Method::DormandPrince54 | Method::DormandPrince853 | Method::Auto => {
+                    let scheme = if method == Method::DormandPrince54 {
+                        Scheme::DormandPrince54
+                    } else {
+                        Scheme::DormandPrince853
+                    };
+                    let cfg = RkConfig {
+                        h_init,
+                        h_max: b - a,
+                        ..cfg.clone()
+                    };
+                    let s = if density {
+                        let sys = LindbladSystem {
+                            ham: &self.ham,
+                            diss: self.dissipator.as_ref(),
+                            h: RefCell::new(vec![C64::new(0.0, 0.0); n * n]),
+                        };
+                        ode::integrate(scheme, &sys, a, b, &mut y, samples, &cfg, &mut on_sample)
+                    } else {
+                        ode::integrate(
+                            scheme,
+                            &SchrodingerSystem { ham: &self.ham },
+                            a,
+                            b,
+                            &mut y,
+                            samples,
+                            &cfg,
+                            &mut on_sample,
+                        )
+                    }?;
+                    h_init = Some(s.last_h);
+                    stats.add(s.steps, s.rejected, s.rhs_evals);
+                }
+            }
+            stats.segments += 1;
+            if y.iter().any(|z| !z.re.is_finite() || !z.im.is_finite()) {
+                return Err(Error::NonFinite {
+                    what: format!("the state at t = {b:e} s"),
+                });
+            }
+        }
+        let state = if density {
+            State::Mixed(y)
+        } else {
+            State::Pure(y)
+        };
+        let drift = rec.drift.max((state.norm() - 1.0).abs());
+        let diagnostics = Diagnostics {
+            method: stats.names.join("+"),
+            reason: self.reason(density),
+            rtol: if stats.adaptive {
+                self.tolerance.rtol
+            } else {
+                0.0
+            },
+            atol: if stats.adaptive {
+                self.tolerance.atol
+            } else {
+                0.0
+            },
+            steps: if stats.adaptive {
+                stats.steps
+            } else {
+                stats.segments
+            },
+            rejected: stats.rejected,
+            evaluations: stats.evaluations,
+            norm_drift: drift,
+        };
+        Ok((state, diagnostics))
+    }
+
+    fn reason(&self, density: bool) -> String {
+        if self.method != Method::Auto {
+            return format!("{} as requested", self.method.name());
+        }
+        let kind = if density {
+            "density matrix (decay, dephasing or a mixed start)"
+        } else {
+            "pure state"
+        };
+        format!(
+            "auto: {kind}; exact propagation on constant segments, {} elsewhere",
+            self.adaptive_scheme().name()
+        )
+    }
+
+    fn adaptive_scheme(&self) -> Method {
+        if self.tolerance.rtol < 1e-6 {
+            Method::DormandPrince853
+        } else {
+            Method::DormandPrince54
+        }
+    }
+
+    fn segment_method(&self, constant: bool, density: bool) -> Result<Method, Error> {
+        let open = self.dissipator.is_some();
+        let m = match self.method {
+            Method::Auto => match (constant, density, open) {
+                (true, false, _) | (true, true, false) => Method::Eigen,
+                (true, true, true) if self.atom.n() <= 12 => Method::LiouvillianExp,
+                _ => self.adaptive_scheme(),
+            },
+            Method::Eigen => {
+                if !constant {
+                    return Err(Error::MethodUnsuitable { method: "eigen", hint: "the Hamiltonian changes within a segment (shaped pulse, chirp or rotating term); use auto, dop853 or magnus4".into() });
+                }
+                if open {
+                    return Err(Error::MethodUnsuitable {
+                        method: "eigen",
+                        hint: "the atom decays or dephases; use liouvillian-exp or auto".into(),
+                    });
+                }
+                Method::Eigen
+            }
+            Method::LiouvillianExp => {
+                if !constant {
+                    return Err(Error::MethodUnsuitable {
+                        method: "liouvillian-exp",
+                        hint: "the Hamiltonian changes within a segment; use auto or dop853".into(),
+                    });
+                }
+                Method::LiouvillianExp
+            }
+            Method::Magnus4 => {
+                if density {
+                    return Err(Error::MethodUnsuitable { method: "magnus4", hint: "it propagates pure states only; with decay or a mixed start use auto or dop853".into() });
+                }
+                Method::Magnus4
+            }
+            m => m,
+        };
+        Ok(m)
+    }
+}
+
+/// Evolve a problem and record its observables.
+pub fn solve(p: &Problem) -> Result<Solution, Error> {
+    Prepared::new(p)?.run()
+}
+
+#[derive(Default)]
+struct Stats {
+    names: Vec<&'static str>,
+    adaptive: bool,
+    steps: u64,
+    rejected: u64,
+    evaluations: u64,
+    segments: u64,
+}
+
+impl Stats {
+    fn used(&mut self, m: Method) {
+        if !self.names.contains(&m.name()) {
+            self.names.push(m.name());
+        }
+    }
+    fn add(&mut self, steps: u64, rejected: u64, evals: u64) {
+        self.adaptive = true;
+        self.steps += steps;
+        self.rejected += rejected;
+        self.evaluations += evals;
+    }
+}
+
+/// Collects observable values at sample indices.
+struct Recorder<'a> {
+    atom: &'a Atom,
+    observables: &'a [Observable],
+    values: Vec<Vec<f64>>,
+    keep: bool,
+    drift: f64,
+}
+
+impl<'a> Recorder<'a> {
+    fn new(atom: &'a Atom, observables: &'a [Observable], samples: usize) -> Self {
+        let values = observables
+            .iter()
+            .map(|o| Vec::with_capacity(o.width() * samples))
+            .collect();
+        Self {
+            atom,
+            observables,
+            values,
+            keep: true,
+            drift: 0.0,
+        }
+    }
+    fn final_only(atom: &'a Atom, observables: &'a [Observable]) -> Self {
+        Self {
+            atom,
+            observables,
+            values: Vec::new(),
+            keep: false,
+            drift: 0.0,
+        }
+    }
+    fn record(&mut self, _index: usize, y: &[C64], density: bool) {
+        let n = self.atom.n();
+        let norm: f64 = if density {
+            (0..n).map(|k| y[k * n + k].re).sum()
+        } else {
+            y.iter().map(|z| z.norm_sqr()).sum()
+        };
+        self.drift = self.drift.max((norm - 1.0).abs());
+        if !self.keep {
+            return;
+        }
+        for (o, v) in self.observables.iter().zip(&mut self.values) {
+            if density {
+                o.evaluate_mixed(self.atom, y, v);
+            } else {
+                o.evaluate_pure(self.atom, y, v);
+            }
+        }
+    }
+}
+
+/// i ċ = H(t) c.
+struct SchrodingerSystem<'a> {
+    ham: &'a Hamiltonian,
+}
+
+impl ode::System for SchrodingerSystem<'_> {
+    fn dim(&self) -> usize {
+        self.ham.n()
+    }
+    #[inline]
+    fn rhs(&self, t: f64, y: &[C64], dy: &mut [C64]) {
+        self.ham.apply(t, y, dy);
+    }
+}
+
+/// dρ/dt = −i[H(t), ρ] + D(ρ), on row-major ρ.
+struct LindbladSystem<'a> {
+    ham: &'a Hamiltonian,
+    diss: Option<&'a Dissipator>,
+    h: RefCell<Vec<C64>>,
+}
+
+impl ode::System for LindbladSystem<'_> {
+    fn dim(&self) -> usize {
+        self.ham.n() * self.ham.n()
+    }
+    fn rhs(&self, t: f64, rho: &[C64], drho: &mut [C64]) {
+        let n = self.ham.n();
+        let mut h = self.h.borrow_mut();
+        self.ham.fill(t, &mut h);
+        let ok = lindblad::commutator_hermitian(n, &h, rho, drho).is_ok()
+            && self.diss.is_none_or(|d| d.add_to(rho, drho).is_ok());
+        if !ok {
+            // Sizes are fixed at construction, so this cannot happen; poison the step so the
+            // integrator reports it rather than continuing silently.
+            drho.fill(C64::new(f64::NAN, 0.0));
+        }
+    }
+}
+
+fn midpoint_eigen(ham: &Hamiltonian, a: f64, b: f64) -> Result<HermitianEigen, Error> {
+    let n = ham.n();
+    let mut h = vec![C64::new(0.0, 0.0); n * n];
+    ham.fill(0.5 * (a + b), &mut h);
+    HermitianEigen::new(n, &h)
+}
+
+type OnSample<'a> = dyn FnMut(usize, f64, &[C64]) + 'a;
+
+fn eigen_pure(
+    ham: &Hamiltonian,
+    a: f64,
+    b: f64,
+    y: &mut [C64],
+    samples: &[f64],
+    on: &mut OnSample,
+) -> Result<(), Error> {
+    let e = midpoint_eigen(ham, a, b)?;
+    let n = ham.n();
+    let mut w = vec![C64::new(0.0, 0.0); n];
+    let mut out = vec![C64::new(0.0, 0.0); n];
+    e.to_eigenbasis(y, &mut w);
+    for (i, &t) in samples.iter().enumerate() {
+        e.evolve_from_eigenbasis(&w, t - a, &mut out);
+        on(i, t, &out);
+    }
+    e.evolve_from_eigenbasis(&w, b - a, y);
+    Ok(())
+}
+
+fn eigen_mixed(
+    ham: &Hamiltonian,
+    a: f64,
+    b: f64,
+    rho: &mut [C64],
+    samples: &[f64],
+    on: &mut OnSample,
+) -> Result<(), Error> {
+    let e = midpoint_eigen(ham, a, b)?;
+    let n = ham.n();
+    let mut tmp = vec![C64::new(0.0, 0.0); n * n];
+    let mut out = vec![C64::new(0.0, 0.0); n * n];
+    let mut conj = |u: &[C64], rho: &[C64], out: &mut [C64]| {
+        matmul(n, u, rho, &mut tmp);
+        matmul_adjoint(n, &tmp, u, out);
+    };
+    for (i, &t) in samples.iter().enumerate() {
+        conj(&e.propagator(t - a), rho, &mut out);
+        on(i, t, &out);
+    }
+    conj(&e.propagator(b - a), rho, &mut out);
+    rho.copy_from_slice(&out);
+    Ok(())
+}
+
+fn liouvillian_exp(
+    ham: &Hamiltonian,
+    d: &Dissipator,
+    a: f64,
+    b: f64,
+    rho: &mut [C64],
+    samples: &[f64],
+    on: &mut OnSample,
+) -> Result<(), Error> {
+    let n = ham.n();
+    let mut h = vec![C64::new(0.0, 0.0); n * n];
+    ham.fill(0.5 * (a + b), &mut h);
+    let l = lindblad::liouvillian(n, &h, d)?;
+    let mut times: Vec<f64> = samples.iter().map(|t| (t - a).max(0.0)).collect();
+    times.push(b - a);
+    let states = lindblad::propagate_constant(&l, rho, &times)?;
+    for (i, (&t, s)) in samples.iter().zip(&states).enumerate() {
+        on(i, t, s);
+    }
+    if let Some(last) = states.last() {
+        rho.copy_from_slice(last);
+    }
+    Ok(())
+}
+
+/// One fourth-order commutator-free Magnus step y ← exp(−ih B₂) exp(−ih B₁) y with
+/// B₁ = α₂H₁ + α₁H₂, B₂ = α₁H₁ + α₂H₂ at the Gauss nodes (Blanes & Moan, Appl. Numer. Math. 56,
+/// 1519 (2006); Alvermann & Fehske, J. Comput. Phys. 230, 5930 (2011), eq. 8).
+fn cf4_step(
+    ham: &Hamiltonian,
+    t: f64,
+    h: f64,
+    y: &mut [C64],
+    buf: &mut Cf4Buffers,
+) -> Result<(), Error> {
+    let s3 = 3f64.sqrt();
+    let (c1, c2) = (0.5 - s3 / 6.0, 0.5 + s3 / 6.0);
+    let (a1, a2) = ((3.0 - 2.0 * s3) / 12.0, (3.0 + 2.0 * s3) / 12.0);
+    ham.fill(t + c1 * h, &mut buf.h1);
+    ham.fill(t + c2 * h, &mut buf.h2);
+    let n = ham.n();
+    for (x, y1) in [(a2, a1), (a1, a2)] {
+        for k in 0..n * n {
+            buf.b[k] = buf.h1[k] * x + buf.h2[k] * y1;
+        }
+        let e = HermitianEigen::new(n, &buf.b)?;
+        e.to_eigenbasis(y, &mut buf.w);
+        e.evolve_from_eigenbasis(&buf.w, h, y);
+    }
+    Ok(())
+}
+
+struct Cf4Buffers {
+    h1: Vec<C64>,
+    h2: Vec<C64>,
+    b: Vec<C64>,
+    w: Vec<C64>,
+}
+
+/// Adaptive CF4 on [a, b] with step doubling (local error ≈ |y_{h/2,h/2} − y_h| / 15), landing
+/// exactly on sample times. Returns (steps, rejected, Hamiltonian evaluations).
+#[allow(clippy::too_many_arguments)] // one segment's whole context; grouping would only rename it
+fn magnus4(
+    ham: &Hamiltonian,
+    a: f64,
+    b: f64,
+    y: &mut [C64],
+    samples: &[f64],
+    tol: &Tolerance,
+    max_steps: u64,
+    h_init: &mut Option<f64>,
+    on: &mut OnSample,
+) -> Result<(u64, u64, u64), Error> {
+    let n = ham.n();
+    let z = C64::new(0.0, 0.0);
+    let mut buf = Cf4Buffers {
+        h1: vec![z; n * n],
+        h2: vec![z; n * n],
+        b: vec![z; n * n],
+        w: vec![z; n],
+    };
+    let (mut big, mut half) = (vec![z; n], vec![z; n]);
+    let mut h = h_init
+        .unwrap_or_else(|| (b - a).min(1.0 / ham.fastest_rate().max(1e-300)))
+        .min(b - a);
+    let (mut t, mut steps, mut rejected, mut evals) = (a, 0u64, 0u64, 0u64);
+    let mut next = 0;
+    while next < samples.len() && samples[next] <= t {
+        on(next, samples[next], y);
+        next += 1;
+    }
+    while t < b {
+        if steps + rejected >= max_steps {
+            return Err(Error::StepFailure {
+                method: "magnus4",
+                t,
+                hint: format!("step limit {max_steps} reached; raise it or loosen rtol"),
+            });
+        }
+        let target = if next < samples.len() {
+            samples[next].min(b)
+        } else {
+            b
+        };
+        let hs = h.min(target - t);
+        big.copy_from_slice(y);
+        half.copy_from_slice(y);
+        cf4_step(ham, t, hs, &mut big, &mut buf)?;
+        cf4_step(ham, t, 0.5 * hs, &mut half, &mut buf)?;
+        cf4_step(ham, t + 0.5 * hs, 0.5 * hs, &mut half, &mut buf)?;
+        evals += 6;
+        let err = (half
+            .iter()
+            .zip(&big)
+            .zip(y.iter())
+            .map(|((p, q), y0)| {
+                ((p - q).norm() / (tol.atol + tol.rtol * y0.norm().max(p.norm()))).powi(2)
+            })
+            .sum::<f64>()
+            / n as f64)
+            .sqrt()
+            / 15.0;
+        if !err.is_finite() {
+            return Err(Error::NonFinite {
+                what: format!("the magnus4 error estimate at t = {t:e} s"),
+            });
+        }
+        let factor = (0.9 * err.max(1e-300).powf(-0.2)).clamp(0.2, 5.0);
+        if err <= 1.0 {
+            y.copy_from_slice(&half);
+            t = if hs == target - t { target } else { t + hs };
+            steps += 1;
+            while next < samples.len() && samples[next] <= t {
+                on(next, samples[next], y);
+                next += 1;
+            }
+            // Only grow from a full step, so landing on a sample does not shrink the next one.
+            if hs == h || factor < 1.0 {
+                h = hs * factor;
+            }
+        } else {
+            rejected += 1;
+            h = hs * factor;
+            if h < 1e-14 * (b - a).max(t.abs()) {
+                return Err(Error::StepFailure {
+                    method: "magnus4",
+                    t,
+                    hint: format!(
+                        "step size underflow (h = {h:e} s); the Hamiltonian may jump inside the segment, or rtol is too tight"
+                    ),
+                });
+            }
+        }
+    }
+    *h_init = Some(h);
+    Ok((steps, rejected, evals))
+}
+
+/// A continuous-wave steady state: every field on at full strength, forever.
+#[derive(Clone, Debug)]
+pub struct SteadyProblem {
+    /// The atom; it must decay, or the steady state is not unique.
+    pub atom: Atom,
+    /// The fields, all on continuously.
+    pub fields: Vec<Field>,
+    /// Largest residual rotation kept in the rotating frame (rad/s); a kept rotating term makes
+    /// the problem time-dependent and is refused.
+    pub cutoff: f64,
+    /// What to compute from the steady state.
+    pub observables: Vec<Observable>,
+}
+
+/// A steady-state problem with its frame built, ready to be re-solved after retuning a field.
+#[derive(Clone, Debug)]
+pub struct SteadyPrepared {
+    atom: Atom,
+    ham: Hamiltonian,
+    report: FrameReport,
+    dissipator: Dissipator,
+    observables: Vec<Observable>,
+    h: Vec<C64>,
+    solver: lindblad::SteadyStateSolver,
+}
+
+/// The outcome of a steady-state solve.
+#[derive(Clone, Debug)]
+pub struct SteadySolution {
+    /// ρ_ss.
+    pub state: State,
+    /// Observable values, concatenated in order.
+    pub values: Vec<f64>,
+    /// The frame report.
+    pub frame: FrameReport,
+}
+
+impl SteadyPrepared {
+    /// Build the time-independent frame Hamiltonian and the dissipator.
+    pub fn new(p: &SteadyProblem) -> Result<Self, Error> {
+        let mut seq = Sequence::builder();
+        let cw = crate::envelope::Envelope::new(crate::envelope::Shape::Square, 1.0)?;
+        for f in 0..p.fields.len() {
+            seq.at(0.0, Pulse::new(f, cw.clone()));
+        }
+        if p.fields.is_empty() {
+            seq.wait(1.0);
+        }
+        let seq = seq.build()?;
+        let frame = Frame::Rotating { cutoff: p.cutoff };
+        let (ham, report) = frame::build(&p.atom, &p.fields, &seq, frame)?;
+        if let Some(t) = ham.terms().iter().find(|t| !t.is_static()) {
+            let name = |k: usize| p.atom.levels()[k].name().to_string();
+            return Err(Error::TimeDependentSteadyState {
+                term: format!("the coupling {} -> {}", name(t.lower), name(t.upper)),
+                nu_hz: t.nu / (2.0 * std::f64::consts::PI),
+            });
+        }
+        let dissipator = dissipator(&p.atom, &p.fields, &ham, frame, seq.pulses())?.ok_or_else(|| Error::Inconsistent {
+            what: "the steady state".into(),
+            hint: "the atom neither decays nor dephases, so no unique steady state exists; add a decay".into(),
+        })?;
+        let observables = p
+            .observables
+            .iter()
+            .map(|o| o.checked(&p.atom))
+            .collect::<Result<Vec<_>, _>>()?;
+        let n = p.atom.n();
+        Ok(Self {
+            atom: p.atom.clone(),
+            ham,
+            report,
+            dissipator,
+            observables,
+            h: vec![C64::new(0.0, 0.0); n * n],
+            solver: lindblad::SteadyStateSolver::new(n)?,
+        })
+    }
+
+    /// Retune a field's carrier by `shift` (rad/s).
+    pub fn shift_field_frequency(&mut self, field: usize, shift: f64) {
+        self.ham.shift_field_frequency(field, shift);
+    }
+
+    fn rho(&mut self) -> Result<&[C64], Error> {
+        self.ham.fill(0.5, &mut self.h);
+        Ok(self.solver.solve(&self.h, &self.dissipator)?)
+    }
+
+    /// The observables' steady values, concatenated.
+    pub fn values(&mut self) -> Result<Vec<f64>, Error> {
+        self.rho()?;
+        let mut out = Vec::new();
+        let rho = self.solver_state();
+        for o in &self.observables {
+            o.evaluate_mixed(&self.atom, rho, &mut out);
+        }
+        Ok(out)
+    }
+
+    /// The full steady state with its observables.
+    pub fn solve(&mut self) -> Result<SteadySolution, Error> {
+        let values = self.values()?;
+        Ok(SteadySolution {
+            state: State::Mixed(self.solver_state().to_vec()),
+            values,
+            frame: self.report.clone(),
+        })
+    }
+
+    fn solver_state(&self) -> &[C64] {
+        self.solver.solution()
+    }
+}
+
+/// The steady state of continuously driven, decaying atoms, by a linear solve of 𝓛ρ = 0 with
+/// Tr ρ = 1.
+pub fn steady_state(p: &SteadyProblem) -> Result<SteadySolution, Error> {
+    SteadyPrepared::new(p)?.solve()
+}
