@@ -198,7 +198,7 @@ pub fn build(
                       counter: bool,
                       nu: f64,
                       chirp: Vec<(usize, i32)>,
-                      tuning: i32| {
+                      tuning: Vec<(usize, i32)>| {
         for (pi, p) in seq.pulses().iter().enumerate() {
             if p.field() != e.field {
                 continue;
@@ -215,8 +215,9 @@ pub fn build(
                 amp: amp * 0.5 * scale[pi] * rot,
                 pulse: pi,
                 nu,
+                nu0: nu,
                 chirp: chirp.clone(),
-                tuning,
+                tuning: tuning.clone(),
             });
         }
     };
@@ -236,7 +237,7 @@ pub fn build(
                         false,
                         nu,
                         if chirped { vec![(e.field, 1)] } else { vec![] },
-                        1,
+                        vec![(e.field, 1)],
                     );
                     notes.push(TermNote {
                         field: field.clone(),
@@ -254,7 +255,7 @@ pub fn build(
                         true,
                         nu,
                         if chirped { vec![(e.field, -1)] } else { vec![] },
-                        -1,
+                        vec![(e.field, -1)],
                     );
                     notes.push(TermNote {
                         field,
@@ -375,7 +376,8 @@ pub fn build(
                         Fate::BeyondCutoff
                     };
                     if fate != Fate::BeyondCutoff {
-                        push_terms(&mut terms, e, e.omega, false, nu, chirp, -m[e.field]);
+                        let tuning = (0..nf).filter(|&f| m[f] != 0).map(|f| (f, -m[f])).collect();
+                        push_terms(&mut terms, e, e.omega, false, nu, chirp, tuning);
                     }
                     notes.push(TermNote {
                         field: field.clone(),
@@ -414,6 +416,8 @@ fn assemble(
     Hamiltonian {
         n,
         frame_phases,
+        diag0: diag.clone(),
+        shifts: vec![0.0; fields.len()],
         diag,
         diag_chirps,
         terms,

@@ -1,9 +1,11 @@
 //! The time-dependent Hamiltonian in a chosen frame, as the solvers see it: a constant diagonal,
 //! chirp-driven diagonal terms and pulse-driven couplings with their residual rotation.
 
+use crate::envelope::{Envelope, Shape};
+use crate::error::Error;
 use crate::field::Chirp;
 use crate::linalg::C64;
-use crate::sequence::Pulse;
+use crate::sequence::{Pulse, Sequence};
 
 /// One coupling: H[upper, lower] += amp · env_p(t) · exp(−i(ν t + Σ_f m_f χ_f(t))), plus its
 /// Hermitian conjugate at H[lower, upper].
@@ -19,11 +21,13 @@ pub struct Term {
     pub pulse: usize,
     /// Residual rotation ν (rad/s); 0 for a term that is static in the frame.
     pub nu: f64,
+    /// ν at the declared carriers (before any [`Hamiltonian::retune`]).
+    pub nu0: f64,
     /// Chirp phases entering the rotation: (field index, multiplicity m_f).
     pub chirp: Vec<(usize, i32)>,
-    /// dν/dω_f: how ν moves when the carrier of the term's own field is retuned (±1 or 0 in
-    /// the exact frame, −m_f in the rotating frame).
-    pub tuning: i32,
+    /// dν/dω_f for every field f whose carrier moves ν: (field, ±1) for the term's own field in
+    /// the exact frame, (f, −m_f) in the rotating frame.
+    pub tuning: Vec<(usize, i32)>,
 }
 
 impl Term {
@@ -51,6 +55,10 @@ pub struct Hamiltonian {
     /// frame_phases[k][f]: how many times field f's phase enters level k's frame phase.
     pub(crate) frame_phases: Vec<Vec<i32>>,
     pub(crate) diag: Vec<f64>,
+    /// The diagonal at the declared carriers.
+    pub(crate) diag0: Vec<f64>,
+    /// Current carrier shift of each field (rad/s), see [`Hamiltonian::retune`].
+    pub(crate) shifts: Vec<f64>,
     pub(crate) diag_chirps: Vec<DiagChirp>,
     pub(crate) terms: Vec<Term>,
     pub(crate) pulses: Vec<Pulse>,
@@ -60,6 +68,56 @@ pub struct Hamiltonian {
 }
 
 impl Hamiltonian {
+    /// A constant Hamiltonian given as a dense row-major `n × n` Hermitian matrix (rad/s), on for
+    /// `duration` seconds: for models that are not built from fields (effective Hamiltonians,
+    /// benchmarks, code cells).
+    pub fn constant(n: usize, h: &[C64], duration: f64) -> Result<Self, Error> {
+        if n == 0 || h.len() != n * n {
+            return Err(Error::Shape {
+                what: "a dense Hamiltonian",
+                expected: n * n,
+                got: h.len(),
+            });
+        }
+        // Decomposing checks finiteness and hermiticity once, with the crate's tolerance.
+        crate::linalg::HermitianEigen::new(n, h)?;
+        let seq = Sequence::builder()
+            .then(Pulse::new(0, Envelope::new(Shape::Square, duration)?))
+            .build()?;
+        let mut terms = Vec::new();
+        for i in 0..n {
+            for j in 0..i {
+                let amp = h[i * n + j];
+                if amp != C64::new(0.0, 0.0) {
+                    terms.push(Term {
+                        upper: i,
+                        lower: j,
+                        amp,
+                        pulse: 0,
+                        nu: 0.0,
+                        nu0: 0.0,
+                        chirp: vec![],
+                        tuning: vec![],
+                    });
+                }
+            }
+        }
+        let diag: Vec<f64> = (0..n).map(|k| h[k * n + k].re).collect();
+        Ok(Self {
+            n,
+            frame_phases: vec![vec![0]; n],
+            diag0: diag.clone(),
+            shifts: vec![0.0],
+            diag,
+            diag_chirps: vec![],
+            terms,
+            pulses: seq.pulses().to_vec(),
+            chirps: vec![None],
+            duration: seq.duration(),
+            breakpoints: seq.breakpoints(),
+        })
+    }
+
     /// Dimension.
     pub fn n(&self) -> usize {
         self.n
@@ -158,18 +216,32 @@ impl Hamiltonian {
         }
     }
 
-    /// Retune field `field`'s carrier by `shift` (rad/s) without rebuilding the frame: the
-    /// levels it dresses move on the diagonal and the residual rotations follow. This is exact:
-    /// the frame's structure does not depend on the carrier, only its numbers do.
-    pub fn shift_field_frequency(&mut self, field: usize, shift: f64) {
+    /// Set field `field`'s carrier to its declared frequency plus `shift` (rad/s), without
+    /// rebuilding the frame: the levels it dresses move on the diagonal and the residual
+    /// rotations follow. Exact, because the frame's structure does not depend on the carrier's
+    /// value; the shift is absolute (calling twice with the same value changes nothing).
+    pub fn retune(&mut self, field: usize, shift: f64) {
+        let Some(old) = self.shifts.get_mut(field) else {
+            return;
+        };
+        *old = shift;
         for k in 0..self.n {
-            if let Some(&m) = self.frame_phases[k].get(field) {
-                self.diag[k] -= m as f64 * shift;
+            let m = self.frame_phases[k].get(field).copied().unwrap_or(0);
+            if m != 0 {
+                self.diag[k] = self.diag0[k]
+                    - (0..self.shifts.len())
+                        .map(|f| self.frame_phases[k][f] as f64 * self.shifts[f])
+                        .sum::<f64>();
             }
         }
         for term in &mut self.terms {
-            if self.pulses[term.pulse].field() == field {
-                term.nu += term.tuning as f64 * shift;
+            if term.tuning.iter().any(|&(f, _)| f == field) {
+                term.nu = term.nu0
+                    + term
+                        .tuning
+                        .iter()
+                        .map(|&(f, m)| m as f64 * self.shifts[f])
+                        .sum::<f64>();
             }
         }
     }

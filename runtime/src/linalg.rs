@@ -154,6 +154,16 @@ impl HermitianEigen {
         }
     }
 
+    /// c = V w: back from eigenbasis amplitudes (already carrying their phases).
+    #[inline]
+    pub fn from_eigenbasis(&self, w: &[C64], out: &mut [C64]) {
+        let n = self.n;
+        for (i, o) in out.iter_mut().enumerate().take(n) {
+            let row = &self.vectors[i * n..(i + 1) * n];
+            *o = row.iter().zip(w).map(|(v, x)| v * x).sum();
+        }
+    }
+
     /// The propagator U(t) = exp(−iHt), row-major.
     pub fn propagator(&self, t: f64) -> Vec<C64> {
         let n = self.n;

@@ -186,7 +186,7 @@ impl Solution {
 }
 
 /// A problem with its frame built and checked, ready to run many times (e.g. across a
-/// detuning sweep with [`Prepared::shift_field_frequency`]).
+/// detuning sweep with [`Prepared::retune`]).
 #[derive(Clone, Debug)]
 pub struct Prepared {
     atom: Atom,
@@ -354,9 +354,50 @@ impl Prepared {
         })
     }
 
-    /// Retune a field's carrier by `shift` (rad/s) (see [`Hamiltonian::shift_field_frequency`]).
-    pub fn shift_field_frequency(&mut self, field: usize, shift: f64) {
-        self.ham.shift_field_frequency(field, shift);
+    /// A problem whose Hamiltonian is given directly (e.g. [`Hamiltonian::constant`]); the atom
+    /// supplies the level count, decays and dephasing. The frame report is empty.
+    #[allow(clippy::too_many_arguments)] // mirrors the fields of `Problem`
+    pub fn with_hamiltonian(
+        atom: Atom,
+        ham: Hamiltonian,
+        initial: State,
+        observables: Vec<Observable>,
+        samples: Samples,
+        method: Method,
+        tolerance: Tolerance,
+        max_steps: u64,
+    ) -> Result<Self, Error> {
+        if ham.n() != atom.n() {
+            return Err(Error::Shape {
+                what: "the Hamiltonian's dimension",
+                expected: atom.n(),
+                got: ham.n(),
+            });
+        }
+        let seq = Sequence::builder().wait(ham.duration()).build()?;
+        let mut p = Problem::new(atom, vec![], seq, initial, observables);
+        p.samples = samples;
+        p.method = method;
+        p.tolerance = tolerance;
+        p.max_steps = max_steps;
+        let mut prepared = Self::new(&p)?;
+        prepared.ham = ham;
+        Ok(prepared)
+    }
+
+    /// Final observable values with field `field` retuned by each of `shifts` (rad/s), in
+    /// parallel over fixed chunks (so the result does not depend on the thread count).
+    pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
+        scan_chunks(self, shifts, |p, s| {
+            p.retune(field, s);
+            p.run_final()
+        })
+    }
+
+    /// Set a field's carrier to its declared value plus `shift` (rad/s) (see
+    /// [`Hamiltonian::retune`]).
+    pub fn retune(&mut self, field: usize, shift: f64) {
+        self.ham.retune(field, shift);
     }
 
     /// The Hamiltonian in the chosen frame.
@@ -596,6 +637,30 @@ impl Prepared {
     }
 }
 
+/// Points per parallel task of a scan: fixed, so results never depend on the thread count.
+const SCAN_CHUNK: usize = 64;
+
+/// Map `f` over `shifts` with one clone of `base` per fixed-size chunk, in parallel.
+fn scan_chunks<P: Clone + Sync + Send>(
+    base: &P,
+    shifts: &[f64],
+    f: impl Fn(&mut P, f64) -> Result<Vec<f64>, Error> + Sync,
+) -> Result<Vec<Vec<f64>>, Error> {
+    use rayon::prelude::*;
+    let chunks: Vec<Result<Vec<Vec<f64>>, Error>> = shifts
+        .par_chunks(SCAN_CHUNK)
+        .map(|chunk| {
+            let mut p = base.clone();
+            chunk.iter().map(|&s| f(&mut p, s)).collect()
+        })
+        .collect();
+    let mut out = Vec::with_capacity(shifts.len());
+    for c in chunks {
+        out.extend(c?);
+    }
+    Ok(out)
+}
+
 /// Evolve a problem and record its observables.
 pub fn solve(p: &Problem) -> Result<Solution, Error> {
     Prepared::new(p)?.run()
@@ -740,12 +805,52 @@ fn eigen_pure(
     let mut w = vec![C64::new(0.0, 0.0); n];
     let mut out = vec![C64::new(0.0, 0.0); n];
     e.to_eigenbasis(y, &mut w);
-    for (i, &t) in samples.iter().enumerate() {
-        e.evolve_from_eigenbasis(&w, t - a, &mut out);
-        on(i, t, &out);
+    if let Some(dt) = uniform_step(samples) {
+        // Equally spaced samples: advance the eigenphases by one fixed factor per sample and
+        // re-anchor them exactly every ANCHOR samples, so rounding never exceeds ~ANCHOR ulps.
+        const ANCHOR: usize = 32;
+        let step: Vec<C64> = e
+            .values()
+            .iter()
+            .map(|l| C64::from_polar(1.0, -l * dt))
+            .collect();
+        let mut wt = vec![C64::new(0.0, 0.0); n];
+        for (i, &t) in samples.iter().enumerate() {
+            if i % ANCHOR == 0 {
+                for k in 0..n {
+                    wt[k] = w[k] * C64::from_polar(1.0, -e.values()[k] * (t - a));
+                }
+            } else {
+                for k in 0..n {
+                    wt[k] *= step[k];
+                }
+            }
+            e.from_eigenbasis(&wt, &mut out);
+            on(i, t, &out);
+        }
+    } else {
+        for (i, &t) in samples.iter().enumerate() {
+            e.evolve_from_eigenbasis(&w, t - a, &mut out);
+            on(i, t, &out);
+        }
     }
     e.evolve_from_eigenbasis(&w, b - a, y);
     Ok(())
+}
+
+/// The spacing of equally spaced sample times (to 1e-12 relative), if there are at least 3.
+fn uniform_step(samples: &[f64]) -> Option<f64> {
+    if samples.len() < 3 {
+        return None;
+    }
+    let dt = (samples[samples.len() - 1] - samples[0]) / (samples.len() - 1) as f64;
+    let tol = 1e-12 * samples[samples.len() - 1].abs().max(dt.abs());
+    let uniform = dt > 0.0
+        && samples
+            .iter()
+            .enumerate()
+            .all(|(i, &t)| (t - (samples[0] + i as f64 * dt)).abs() <= tol);
+    uniform.then_some(dt)
 }
 
 fn eigen_mixed(
@@ -1010,9 +1115,18 @@ impl SteadyPrepared {
         })
     }
 
-    /// Retune a field's carrier by `shift` (rad/s).
-    pub fn shift_field_frequency(&mut self, field: usize, shift: f64) {
-        self.ham.shift_field_frequency(field, shift);
+    /// Set a field's carrier to its declared value plus `shift` (rad/s).
+    pub fn retune(&mut self, field: usize, shift: f64) {
+        self.ham.retune(field, shift);
+    }
+
+    /// Steady observable values with field `field` retuned by each of `shifts` (rad/s), in
+    /// parallel over fixed chunks.
+    pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
+        scan_chunks(self, shifts, |p, s| {
+            p.retune(field, s);
+            p.values()
+        })
     }
 
     fn rho(&mut self) -> Result<&[C64], Error> {
