@@ -153,6 +153,9 @@ impl Atom {
     }
 }
 
+/// A decay given by its total rate and branching fractions: (from, total rate, [(to, fraction)]).
+type BranchedDecay = (LevelId, f64, Vec<(LevelId, f64)>);
+
 /// Collects levels, transitions and decays; [`AtomBuilder::build`] checks them all at once.
 #[derive(Clone, Debug, Default)]
 pub struct AtomBuilder {
@@ -160,7 +163,7 @@ pub struct AtomBuilder {
     transitions: Vec<Transition>,
     decays: Vec<Decay>,
     dephasing: Vec<Dephasing>,
-    branched: Vec<(LevelId, f64, Vec<(LevelId, f64)>)>,
+    branched: Vec<BranchedDecay>,
 }
 
 impl AtomBuilder {

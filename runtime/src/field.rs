@@ -11,7 +11,7 @@ pub const HBAR: f64 = 1.054_571_817e-34;
 /// Speed of light c (m/s), exact.
 pub const C_LIGHT: f64 = 299_792_458.0;
 /// Vacuum permittivity ε₀ (F/m), CODATA 2018.
-pub const EPSILON_0: f64 = 8.854_187_8128e-12;
+pub const EPSILON_0: f64 = 8.854_187_812_8e-12;
 
 /// Where the field's carrier sits.
 #[derive(Clone, Debug, PartialEq)]

@@ -3,7 +3,7 @@
 
 use crate::atom::Atom;
 use crate::error::Error;
-use crate::field::Field;
+use crate::field::{Carrier, Field};
 use crate::hamiltonian::{DiagChirp, Hamiltonian, Term};
 use crate::linalg::C64;
 use crate::sequence::{Amplitude, Sequence};
@@ -12,13 +12,15 @@ use crate::sequence::{Amplitude, Sequence};
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub enum Frame {
     /// Interaction picture with respect to the bare level energies: i ċ_k = Σ_n c_n e^{iω_kn t}
-    /// ⟨k|H_I(t)|n⟩/ħ with the full field, co- and counter-rotating terms alike.
+    /// ⟨k|V(t)|n⟩/ħ with the lab-frame coupling V(t) = −d·E(t) of the full field, co- and
+    /// counter-rotating terms alike.
     Exact {
         /// Refuse when the estimated number of steps exceeds this.
         max_steps: f64,
     },
     /// Rotating frame from the coupling graph: co-rotating terms kept, counter-rotating terms
-    /// dropped, couplings left rotating at |ν| ≤ `cutoff` kept with their e^{−iνt}, faster ones dropped.
+    /// dropped, couplings detuned by at most `cutoff` from their transition and left rotating at
+    /// |ν| ≤ `cutoff` kept with their e^{−iνt}, the others dropped.
     Rotating {
         /// Largest residual rotation kept (rad/s); `f64::INFINITY` keeps all.
         cutoff: f64,
@@ -58,7 +60,8 @@ pub struct TermNote {
     pub field: String,
     /// Transition, as `lower -> upper`.
     pub transition: String,
-    /// Residual rotation ν (rad/s) in the frame (for dropped terms: the rotation they would have).
+    /// Residual rotation ν (rad/s) in the frame, at the declared carriers (for dropped terms:
+    /// the rotation they would have had in this frame).
     pub rotation: f64,
     /// What was done with it.
     pub fate: Fate,
@@ -92,6 +95,27 @@ struct Edge {
     omega: C64,
     /// Counter-rotating Rabi frequency Ω_cr = F*·⟨u|d·ε*|l⟩ (rad/s).
     omega_counter: C64,
+}
+
+/// ω_field − ω_transition without passing through the absolute carrier when the field is given
+/// by its detuning: at optical frequencies ω ≈ 10¹⁵ rad/s has an ulp of ~0.1 rad/s, which would
+/// otherwise round every detuning.
+fn edge_detuning(atom: &Atom, field: &Field, omega: f64, transition: usize) -> Result<f64, Error> {
+    Ok(match field.carrier() {
+        Carrier::Detuning {
+            transition: reference,
+            detuning,
+        } if *reference == transition => *detuning,
+        Carrier::Detuning {
+            transition: reference,
+            detuning,
+        } => {
+            detuning
+                + (atom.transition_frequency(*reference)?
+                    - atom.transition_frequency(transition)?)
+        }
+        Carrier::Frequency(_) => omega - atom.transition_frequency(transition)?,
+    })
 }
 
 /// Per-pulse amplitude factor: the pulse's scale, or the one its area demands.
@@ -173,7 +197,7 @@ pub fn build(
                 transition: ti,
                 lower: tr.lower(),
                 upper: tr.upper(),
-                detuning: omegas[fi] - atom.transition_frequency(ti)?,
+                detuning: edge_detuning(atom, f, omegas[fi], ti)?,
                 omega,
                 omega_counter,
             });
@@ -229,7 +253,7 @@ pub fn build(
                 let w_ul = energies[e.upper] - energies[e.lower];
                 let chirped = fields[e.field].chirp().is_some();
                 if e.omega.norm() > 0.0 {
-                    let nu = omegas[e.field] - w_ul;
+                    let nu = e.detuning;
                     push_terms(
                         &mut terms,
                         e,
@@ -243,7 +267,11 @@ pub fn build(
                         field: field.clone(),
                         transition: transition.clone(),
                         rotation: nu,
-                        fate: Fate::TimeDependent,
+                        fate: if nu == 0.0 && !chirped {
+                            Fate::Static
+                        } else {
+                            Fate::TimeDependent
+                        },
                     });
                 }
                 if e.omega_counter.norm() > 0.0 {
@@ -320,17 +348,18 @@ pub fn build(
                 let shift: Vec<i32> = (0..nf)
                     .map(|f| mult[e.lower][f] + i32::from(f == e.field) - mult[e.upper][f])
                     .collect();
+                // Along a tree edge H_uu − H_ll = ω_ul − ω_f = −Δ: build the diagonal from the
+                // detunings themselves, never from differences of absolute frequencies.
+                let dshift = diag[e.lower] - e.detuning - diag[e.upper];
                 for k in 0..n {
                     if comp[k] == cu {
                         comp[k] = cl;
+                        diag[k] += dshift;
                         for f in 0..nf {
                             mult[k][f] += shift[f];
                         }
                     }
                 }
-            }
-            for k in 0..n {
-                diag[k] = energies[k] - (0..nf).map(|f| mult[k][f] as f64 * omegas[f]).sum::<f64>();
             }
             // Each group of coupled levels gets its lowest level as its zero of energy.
             for c in 0..n {
@@ -363,7 +392,14 @@ pub fn build(
                     let m: Vec<i32> = (0..nf)
                         .map(|f| mult[e.upper][f] - mult[e.lower][f] - i32::from(f == e.field))
                         .collect();
-                    let nu = -(0..nf).map(|f| m[f] as f64 * omegas[f]).sum::<f64>();
+                    // ν = −m·ω = (H_uu − H_ll) + Δ, from small numbers (see `edge_detuning`).
+                    let nu = if m.iter().all(|&x| x == 0) {
+                        0.0
+                    } else if comp[e.upper] == comp[e.lower] {
+                        diag[e.upper] - diag[e.lower] + e.detuning
+                    } else {
+                        -(0..nf).map(|f| m[f] as f64 * omegas[f]).sum::<f64>()
+                    };
                     let chirp: Vec<(usize, i32)> = (0..nf)
                         .filter(|&f| m[f] != 0 && fields[f].chirp().is_some())
                         .map(|f| (f, -m[f]))
@@ -387,11 +423,15 @@ pub fn build(
                     });
                 }
                 if e.omega_counter.norm() > 0.0 {
-                    let w_ul = energies[e.upper] - energies[e.lower];
+                    // e^{+i(ω_f t)} e^{i(θ_u − θ_l)}: the counter-rotating part turns at
+                    // −(ω_f + (n_u − n_l)·ω) in this frame (−2ω_f along a tree edge).
+                    let frame: f64 = (0..nf)
+                        .map(|f| (mult[e.upper][f] - mult[e.lower][f]) as f64 * omegas[f])
+                        .sum();
                     notes.push(TermNote {
                         field,
                         transition,
-                        rotation: -(omegas[e.field] + w_ul),
+                        rotation: -(omegas[e.field] + frame),
                         fate: Fate::CounterRotating,
                     });
                 }

@@ -37,6 +37,23 @@ impl Term {
     }
 }
 
+/// Which pulses act inside one segment between breakpoints ([`Hamiltonian::segment`]).
+#[derive(Clone, Debug)]
+pub struct Segment {
+    active: Vec<bool>,
+}
+
+/// Reusable buffers of [`Hamiltonian::apply_batch`].
+#[derive(Clone, Debug, Default)]
+pub struct BatchScratch {
+    /// dν/dω_field of each term.
+    tuning: Vec<i32>,
+    /// Multiplicity of the field in each level's frame phase.
+    mult: Vec<f64>,
+    /// Each copy's shift relative to the current tuning (rad/s).
+    offsets: Vec<f64>,
+}
+
 /// A chirp-driven diagonal term: H[level, level] −= multiplicity · δ_field(t).
 #[derive(Clone, Debug)]
 pub struct DiagChirp {
@@ -145,9 +162,29 @@ impl Hamiltonian {
         &self.breakpoints
     }
 
+    /// The pulses acting inside the segment (a, b) between two breakpoints. Evaluating H "from
+    /// inside" a segment matters at its ends: a pulse that starts exactly at b must not be seen
+    /// by the last Runge–Kutta stage of (a, b), nor one that ends at a by the first.
+    pub fn segment(&self, a: f64, b: f64) -> Segment {
+        Segment {
+            active: self
+                .pulses
+                .iter()
+                .map(|p| p.start() < b && p.end() > a)
+                .collect(),
+        }
+    }
+
     #[inline]
-    fn term_value(&self, term: &Term, t: f64) -> C64 {
-        let env = self.pulses[term.pulse].value_at(t);
+    fn term_value(&self, term: &Term, t: f64, seg: Option<&Segment>) -> C64 {
+        let p = &self.pulses[term.pulse];
+        let env = match seg {
+            Some(s) if !s.active[term.pulse] => 0.0,
+            Some(_) => p
+                .envelope()
+                .value((t - p.start()).clamp(0.0, p.envelope().duration())),
+            None => p.value_at(t),
+        };
         if env == 0.0 {
             return C64::new(0.0, 0.0);
         }
@@ -177,23 +214,30 @@ impl Hamiltonian {
         d
     }
 
-    /// Write H(t) (rad/s) into a dense row-major `n × n` buffer.
+    /// Write H(t) (rad/s) into a dense row-major `n × n` buffer; a pulse counts as on at both
+    /// of its ends.
     pub fn fill(&self, t: f64, h: &mut [C64]) {
+        self.fill_in(None, t, h)
+    }
+
+    /// [`Hamiltonian::fill`] as seen from inside a segment (see [`Hamiltonian::segment`]).
+    pub fn fill_in(&self, seg: Option<&Segment>, t: f64, h: &mut [C64]) {
         let n = self.n;
         h[..n * n].fill(C64::new(0.0, 0.0));
         for k in 0..n {
             h[k * n + k] = C64::new(self.diag_value(k, t), 0.0);
         }
         for term in &self.terms {
-            let v = self.term_value(term, t);
+            let v = self.term_value(term, t, seg);
             h[term.upper * n + term.lower] += v;
             h[term.lower * n + term.upper] += v.conj();
         }
     }
 
-    /// dy = −i H(t) y for a state vector, from the sparse terms (no dense matrix).
+    /// dy = −i H(t) y for a state vector, from the sparse terms (no dense matrix), as seen from
+    /// inside a segment when one is given (see [`Hamiltonian::segment`]).
     #[inline]
-    pub fn apply(&self, t: f64, y: &[C64], dy: &mut [C64]) {
+    pub fn apply(&self, seg: Option<&Segment>, t: f64, y: &[C64], dy: &mut [C64]) {
         if self.diag_chirps.is_empty() {
             for k in 0..self.n {
                 dy[k] = y[k] * self.diag[k];
@@ -204,7 +248,7 @@ impl Hamiltonian {
             }
         }
         for term in &self.terms {
-            let v = self.term_value(term, t);
+            let v = self.term_value(term, t, seg);
             if v == C64::new(0.0, 0.0) {
                 continue;
             }
@@ -218,8 +262,10 @@ impl Hamiltonian {
 
     /// Set field `field`'s carrier to its declared frequency plus `shift` (rad/s), without
     /// rebuilding the frame: the levels it dresses move on the diagonal and the residual
-    /// rotations follow. Exact, because the frame's structure does not depend on the carrier's
-    /// value; the shift is absolute (calling twice with the same value changes nothing).
+    /// rotations follow, exactly. Which terms are kept (the spanning forest and the cutoff) stays
+    /// as decided at the declared carriers, and so does the frame report; rebuild the problem
+    /// when a retuning should change those decisions. The shift is absolute (calling twice with
+    /// the same value changes nothing).
     pub fn retune(&mut self, field: usize, shift: f64) {
         let Some(old) = self.shifts.get_mut(field) else {
             return;
@@ -242,6 +288,96 @@ impl Hamiltonian {
                         .iter()
                         .map(|&(f, m)| m as f64 * self.shifts[f])
                         .sum::<f64>();
+            }
+        }
+    }
+
+    /// How a field's carrier moves term `i`'s rotation (dν/dω_field).
+    fn tuning_of(&self, i: usize, field: usize) -> i32 {
+        self.terms[i]
+            .tuning
+            .iter()
+            .find(|&&(f, _)| f == field)
+            .map_or(0, |&(_, m)| m)
+    }
+
+    /// Whether retuning `field` can change the Hamiltonian's time dependence.
+    pub fn tunes_rotation(&self, field: usize) -> bool {
+        (0..self.terms.len()).any(|i| self.tuning_of(i, field) != 0)
+    }
+
+    /// dy = −i H_c(t) y_c for K copies of the state, interleaved level-major
+    /// (`y[k·K + c]` is amplitude k of copy c), copy c having field `field` retuned by
+    /// `shifts[c]` relative to the current tuning. Envelopes and chirps are evaluated once for
+    /// all copies, and every inner loop runs over the copies, contiguous in memory.
+    #[allow(clippy::too_many_arguments)] // the batch, its segment and its scratch space
+    pub fn apply_batch(
+        &self,
+        seg: Option<&Segment>,
+        t: f64,
+        field: usize,
+        shifts: &[f64],
+        y: &[C64],
+        dy: &mut [C64],
+        scratch: &mut BatchScratch,
+    ) {
+        let n = self.n;
+        let kk = shifts.len();
+        let minus_i = C64::new(0.0, -1.0);
+        if scratch.tuning.len() != self.terms.len() {
+            scratch.tuning = (0..self.terms.len())
+                .map(|i| self.tuning_of(i, field))
+                .collect();
+            scratch.mult = (0..n)
+                .map(|k| self.frame_phases[k].get(field).copied().unwrap_or(0) as f64)
+                .collect();
+            let current = self.shifts.get(field).copied().unwrap_or(0.0);
+            scratch.offsets = shifts.iter().map(|s| s - current).collect();
+        }
+        for k in 0..n {
+            let dk = self.diag_value(k, t);
+            let mk = scratch.mult[k];
+            let (yk, dyk) = (&y[k * kk..(k + 1) * kk], &mut dy[k * kk..(k + 1) * kk]);
+            for ((o, &a), &d) in dyk.iter_mut().zip(yk).zip(&scratch.offsets) {
+                // −i·(diag − m·δ_c)·y
+                *o = C64::new(a.im, -a.re) * (dk - mk * d);
+            }
+        }
+        for (i, term) in self.terms.iter().enumerate() {
+            let v = self.term_value(term, t, seg);
+            if v == C64::new(0.0, 0.0) {
+                continue;
+            }
+            let (vm, vmc) = (minus_i * v, minus_i * v.conj());
+            let (u, l) = (term.upper, term.lower);
+            let m = scratch.tuning[i] as f64;
+            // Rows u and l of dy are disjoint (u ≠ l), so they can be borrowed together.
+            let (du, dl) = if u > l {
+                let (lo, hi) = dy.split_at_mut(u * kk);
+                (&mut hi[..kk], &mut lo[l * kk..(l + 1) * kk])
+            } else {
+                let (lo, hi) = dy.split_at_mut(l * kk);
+                (&mut lo[u * kk..(u + 1) * kk], &mut hi[..kk])
+            };
+            let (yu, yl) = (&y[u * kk..(u + 1) * kk], &y[l * kk..(l + 1) * kk]);
+            if m == 0.0 {
+                for (o, &a) in du.iter_mut().zip(yl) {
+                    *o += vm * a;
+                }
+                for (o, &a) in dl.iter_mut().zip(yu) {
+                    *o += vmc * a;
+                }
+            } else {
+                for (((o, p), (&a, &b)), &d) in du
+                    .iter_mut()
+                    .zip(dl.iter_mut())
+                    .zip(yl.iter().zip(yu))
+                    .zip(&scratch.offsets)
+                {
+                    let ph = C64::from_polar(1.0, -m * d * t);
+                    *o += vm * ph * a;
+                    *p += vmc * ph.conj() * b;
+                }
             }
         }
     }

@@ -31,6 +31,9 @@
 //! # Ok::<(), fieldbook_runtime::error::Error>(())
 //! ```
 #![deny(missing_docs)]
+// Index loops below mirror the matrix formulas they implement (ρ_ij, H_kn); iterator chains
+// would hide the indices the physics is written in.
+#![allow(clippy::needless_range_loop)]
 
 pub mod atom;
 pub mod envelope;

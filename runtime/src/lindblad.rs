@@ -60,7 +60,7 @@ pub enum LindbladError {
     NegativeRate {
         /// Which channel carries the rate.
         channel: Channel,
-        /// The rate given, in rad/s.
+        /// The rate given, in 1/s.
         rate: f64,
     },
     /// An input holds NaN or an infinity (or a product of inputs overflowed).
@@ -181,7 +181,7 @@ impl fmt::Display for LindbladError {
             ),
             LindbladError::NegativeRate { channel, rate } => write!(
                 f,
-                "{channel} has negative rate {rate} rad/s: rates must be zero or positive"
+                "{channel} has negative rate {rate} 1/s: rates must be zero or positive"
             ),
             LindbladError::NonFinite { what, index } => write!(
                 f,
@@ -237,24 +237,24 @@ impl fmt::Display for LindbladError {
 
 impl std::error::Error for LindbladError {}
 
-/// Spontaneous decay `from` → `to` at partial rate `rate` (Γ, rad/s): L = √Γ |to⟩⟨from|.
+/// Spontaneous decay `from` → `to` at partial rate `rate` (Γ, 1/s): L = √Γ |to⟩⟨from|.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Jump {
     /// Level the population leaves.
     pub from: usize,
     /// Level the population arrives in.
     pub to: usize,
-    /// Partial decay rate Γ in rad/s (≥ 0).
+    /// Partial decay rate Γ in 1/s (≥ 0).
     pub rate: f64,
 }
 
-/// Pure dephasing of one level at rate `rate` (γ, rad/s): L = √(2γ) |k⟩⟨k|, so every
+/// Pure dephasing of one level at rate `rate` (γ, 1/s): L = √(2γ) |k⟩⟨k|, so every
 /// coherence ρ_kj (j ≠ k) decays as e^{−γt} and populations are unchanged.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Dephasing {
     /// The dephased level k.
     pub level: usize,
-    /// Dephasing rate γ of the coherences of level k, in rad/s (≥ 0).
+    /// Dephasing rate γ of the coherences of level k, in 1/s (≥ 0).
     pub rate: f64,
 }
 
@@ -277,10 +277,11 @@ pub struct Dissipator {
 
 /// Phase noise of a drive whose phase enters level k's frame phase with weight w_k:
 /// L = √γ Σ_k w_k |k⟩⟨k|, so ρ_ij decays at (γ/2)(w_i − w_j)². A laser of Lorentzian FWHM γ
-/// (phase diffusion, ⟨Δφ²⟩ = γ|t|) gives exactly this in the rotating frame.
+/// (phase diffusion, ⟨Δφ²⟩ = γ|t|) gives exactly this in a rotating frame in which all of that
+/// laser's kept couplings are static.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PhaseNoise {
-    /// γ, the FWHM of the drive's line (rad/s, ≥ 0).
+    /// γ, the FWHM of the drive's line (1/s, ≥ 0).
     pub rate: f64,
     /// w_k for every level.
     pub weights: Vec<f64>,
@@ -410,14 +411,14 @@ impl Dissipator {
         &self.dephasing
     }
 
-    /// Total decay rate out of each level, Σ_to Γ(from → to), in rad/s: the population
+    /// Total decay rate out of each level, Σ_to Γ(from → to), in 1/s: the population
     /// of level i times entry i is its photon-scattering rate.
     pub fn total_rates(&self) -> Vec<f64> {
         self.out_rate.clone()
     }
 
     /// Decay rate of the matrix element ρ_ij under this dissipator alone (−D acting on
-    /// |i⟩⟨j| projected back on |i⟩⟨j|), in rad/s.
+    /// |i⟩⟨j| projected back on |i⟩⟨j|), in 1/s.
     fn damping(&self, i: usize, j: usize) -> f64 {
         let noise = self.noise.get(i * self.n + j).copied().unwrap_or(0.0);
         if i == j {

@@ -8,7 +8,7 @@ use crate::atom::Atom;
 use crate::error::Error;
 use crate::field::Field;
 use crate::frame::{self, Frame, FrameReport};
-use crate::hamiltonian::Hamiltonian;
+use crate::hamiltonian::{BatchScratch, Hamiltonian, Segment};
 use crate::linalg::{C64, HermitianEigen, matmul, matmul_adjoint};
 use crate::lindblad::{self, Dephasing, Dissipator, Jump};
 use crate::observe::Observable;
@@ -149,7 +149,8 @@ pub struct Diagnostics {
     pub rtol: f64,
     /// Absolute tolerance of adaptive steps.
     pub atol: f64,
-    /// Accepted steps of adaptive methods; segments for exact ones.
+    /// Accepted steps of adaptive methods (when any ran), else the number of exactly
+    /// propagated segments.
     pub steps: u64,
     /// Rejected steps.
     pub rejected: u64,
@@ -280,7 +281,7 @@ impl Prepared {
             });
         }
         let (rtol, atol) = (p.tolerance.rtol, p.tolerance.atol);
-        if !(rtol.is_finite() && rtol > 0.0 && rtol < 1.0) || !(atol.is_finite() && atol > 0.0) {
+        if !(rtol.is_finite() && rtol > 0.0 && rtol < 1.0 && atol.is_finite() && atol > 0.0) {
             return Err(Error::OutOfRange {
                 what: "a solver tolerance".into(),
                 value: if rtol.is_finite() && rtol > 0.0 && rtol < 1.0 {
@@ -387,11 +388,121 @@ impl Prepared {
 
     /// Final observable values with field `field` retuned by each of `shifts` (rad/s), in
     /// parallel over fixed chunks (so the result does not depend on the thread count).
+    ///
+    /// Pure-state problems integrate each chunk as one stacked system whose error control
+    /// holds every point to the tolerance on its own (the norm is the worst point's), sharing
+    /// envelope evaluations and steps; others run point by point.
     pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
-        scan_chunks(self, shifts, |p, s| {
-            p.retune(field, s);
-            p.run_final()
-        })
+        let density = self.is_density();
+        let batchable = matches!(
+            self.method,
+            Method::Auto | Method::DormandPrince54 | Method::DormandPrince853
+        );
+        if density || !batchable || field >= self.ham.shifts.len() {
+            return scan_chunks(self, shifts, |p, s| {
+                p.retune(field, s);
+                p.run_final()
+            });
+        }
+        use rayon::prelude::*;
+        let chunks: Vec<Result<Vec<Vec<f64>>, Error>> = shifts
+            .par_chunks(SCAN_CHUNK)
+            .map(|c| self.run_final_batch(field, c))
+            .collect();
+        let mut out = Vec::with_capacity(shifts.len());
+        for c in chunks {
+            out.extend(c?);
+        }
+        Ok(out)
+    }
+
+    /// Final observables of K pure-state copies with `field` retuned to each shift.
+    fn run_final_batch(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
+        let n = self.atom.n();
+        let k = shifts.len();
+        let State::Pure(c0) = &self.initial else {
+            return Err(Error::MethodUnsuitable {
+                method: "scan",
+                hint: "stacked scans take pure states".into(),
+            });
+        };
+        // Level-major interleaving: y[j·K + c] is amplitude j of copy c.
+        let mut y: Vec<C64> = c0.iter().flat_map(|&a| std::iter::repeat_n(a, k)).collect();
+        let mut copy = vec![C64::new(0.0, 0.0); n];
+        let mut copies: Option<Vec<Hamiltonian>> = None;
+        let tunes = self.ham.tunes_rotation(field);
+        let cfg = RkConfig {
+            rtol: self.tolerance.rtol,
+            atol: self.tolerance.atol,
+            max_steps: self.max_steps,
+            blocks: k,
+            ..RkConfig::default()
+        };
+        let mut h_init = None;
+        for w in self.ham.breakpoints().windows(2) {
+            let (a, b) = (w[0], w[1]);
+            if b <= a {
+                continue;
+            }
+            let constant = self.ham.is_constant_on(a, b) && !tunes;
+            match self.segment_method(constant, false)? {
+                Method::Eigen => {
+                    let hams = copies.get_or_insert_with(|| {
+                        shifts
+                            .iter()
+                            .map(|&s| {
+                                let mut h = self.ham.clone();
+                                h.retune(field, s);
+                                h
+                            })
+                            .collect()
+                    });
+                    for (c, h) in hams.iter().enumerate() {
+                        for j in 0..n {
+                            copy[j] = y[j * k + c];
+                        }
+                        eigen_pure(h, a, b, &mut copy, &[], &mut |_, _, _| {})?;
+                        for j in 0..n {
+                            y[j * k + c] = copy[j];
+                        }
+                    }
+                }
+                m => {
+                    let scheme = if m == Method::DormandPrince54 {
+                        Scheme::DormandPrince54
+                    } else {
+                        Scheme::DormandPrince853
+                    };
+                    let sys = BatchSystem {
+                        ham: &self.ham,
+                        seg: self.ham.segment(a, b),
+                        field,
+                        shifts,
+                        scratch: RefCell::new(BatchScratch::default()),
+                    };
+                    let cfg = RkConfig {
+                        h_init,
+                        h_max: b - a,
+                        ..cfg.clone()
+                    };
+                    let s =
+                        ode::integrate(scheme, &sys, a, b, &mut y, &[], &cfg, &mut |_, _, _| {})?;
+                    h_init = Some(s.last_h);
+                }
+            }
+        }
+        let mut out = Vec::with_capacity(k);
+        for c in 0..k {
+            for j in 0..n {
+                copy[j] = y[j * k + c];
+            }
+            let mut v = Vec::new();
+            for o in &self.observables {
+                o.evaluate_pure(&self.atom, &copy, &mut v);
+            }
+            out.push(v);
+        }
+        Ok(out)
     }
 
     /// Set a field's carrier to its declared value plus `shift` (rad/s) (see
@@ -440,7 +551,7 @@ impl Prepared {
     }
 
     fn propagate(&self, rec: &mut Recorder) -> Result<(State, Diagnostics), Error> {
-        let density = self.dissipator.is_some() || matches!(self.initial, State::Mixed(_));
+        let density = self.is_density();
         let n = self.atom.n();
         let mut stats = Stats::default();
         let cfg = RkConfig {
@@ -515,6 +626,7 @@ impl Prepared {
                     let s = if density {
                         let sys = LindbladSystem {
                             ham: &self.ham,
+                            seg: self.ham.segment(a, b),
                             diss: self.dissipator.as_ref(),
                             h: RefCell::new(vec![C64::new(0.0, 0.0); n * n]),
                         };
@@ -522,7 +634,10 @@ impl Prepared {
                     } else {
                         ode::integrate(
                             scheme,
-                            &SchrodingerSystem { ham: &self.ham },
+                            &SchrodingerSystem {
+                                ham: &self.ham,
+                                seg: self.ham.segment(a, b),
+                            },
                             a,
                             b,
                             &mut y,
@@ -571,6 +686,14 @@ impl Prepared {
             norm_drift: drift,
         };
         Ok((state, diagnostics))
+    }
+
+    /// Whether the state must be a density matrix: dissipation, a mixed start, or a method that
+    /// only propagates density matrices.
+    fn is_density(&self) -> bool {
+        self.dissipator.is_some()
+            || matches!(self.initial, State::Mixed(_))
+            || self.method == Method::LiouvillianExp
     }
 
     fn reason(&self, density: bool) -> String {
@@ -638,7 +761,7 @@ impl Prepared {
 }
 
 /// Points per parallel task of a scan: fixed, so results never depend on the thread count.
-const SCAN_CHUNK: usize = 64;
+const SCAN_CHUNK: usize = 32;
 
 /// Map `f` over `shifts` with one clone of `base` per fixed-size chunk, in parallel.
 fn scan_chunks<P: Clone + Sync + Send>(
@@ -743,9 +866,10 @@ impl<'a> Recorder<'a> {
     }
 }
 
-/// i ċ = H(t) c.
+/// i ċ = H(t) c inside one segment.
 struct SchrodingerSystem<'a> {
     ham: &'a Hamiltonian,
+    seg: Segment,
 }
 
 impl ode::System for SchrodingerSystem<'_> {
@@ -754,13 +878,40 @@ impl ode::System for SchrodingerSystem<'_> {
     }
     #[inline]
     fn rhs(&self, t: f64, y: &[C64], dy: &mut [C64]) {
-        self.ham.apply(t, y, dy);
+        self.ham.apply(Some(&self.seg), t, y, dy);
+    }
+}
+
+/// i ċ_c = H_c(t) c_c for copies that differ in one field's tuning.
+struct BatchSystem<'a> {
+    ham: &'a Hamiltonian,
+    seg: Segment,
+    field: usize,
+    shifts: &'a [f64],
+    scratch: RefCell<BatchScratch>,
+}
+
+impl ode::System for BatchSystem<'_> {
+    fn dim(&self) -> usize {
+        self.ham.n() * self.shifts.len()
+    }
+    fn rhs(&self, t: f64, y: &[C64], dy: &mut [C64]) {
+        self.ham.apply_batch(
+            Some(&self.seg),
+            t,
+            self.field,
+            self.shifts,
+            y,
+            dy,
+            &mut self.scratch.borrow_mut(),
+        );
     }
 }
 
 /// dρ/dt = −i[H(t), ρ] + D(ρ), on row-major ρ.
 struct LindbladSystem<'a> {
     ham: &'a Hamiltonian,
+    seg: Segment,
     diss: Option<&'a Dissipator>,
     h: RefCell<Vec<C64>>,
 }
@@ -772,7 +923,7 @@ impl ode::System for LindbladSystem<'_> {
     fn rhs(&self, t: f64, rho: &[C64], drho: &mut [C64]) {
         let n = self.ham.n();
         let mut h = self.h.borrow_mut();
-        self.ham.fill(t, &mut h);
+        self.ham.fill_in(Some(&self.seg), t, &mut h);
         let ok = lindblad::commutator_hermitian(n, &h, rho, drho).is_ok()
             && self.diss.is_none_or(|d| d.add_to(rho, drho).is_ok());
         if !ok {
@@ -908,6 +1059,7 @@ fn liouvillian_exp(
 /// 1519 (2006); Alvermann & Fehske, J. Comput. Phys. 230, 5930 (2011), eq. 8).
 fn cf4_step(
     ham: &Hamiltonian,
+    seg: &Segment,
     t: f64,
     h: f64,
     y: &mut [C64],
@@ -916,8 +1068,8 @@ fn cf4_step(
     let s3 = 3f64.sqrt();
     let (c1, c2) = (0.5 - s3 / 6.0, 0.5 + s3 / 6.0);
     let (a1, a2) = ((3.0 - 2.0 * s3) / 12.0, (3.0 + 2.0 * s3) / 12.0);
-    ham.fill(t + c1 * h, &mut buf.h1);
-    ham.fill(t + c2 * h, &mut buf.h2);
+    ham.fill_in(Some(seg), t + c1 * h, &mut buf.h1);
+    ham.fill_in(Some(seg), t + c2 * h, &mut buf.h2);
     let n = ham.n();
     for (x, y1) in [(a2, a1), (a1, a2)] {
         for k in 0..n * n {
@@ -960,6 +1112,7 @@ fn magnus4(
         w: vec![z; n],
     };
     let (mut big, mut half) = (vec![z; n], vec![z; n]);
+    let seg = ham.segment(a, b);
     let mut h = h_init
         .unwrap_or_else(|| (b - a).min(1.0 / ham.fastest_rate().max(1e-300)))
         .min(b - a);
@@ -985,9 +1138,9 @@ fn magnus4(
         let hs = h.min(target - t);
         big.copy_from_slice(y);
         half.copy_from_slice(y);
-        cf4_step(ham, t, hs, &mut big, &mut buf)?;
-        cf4_step(ham, t, 0.5 * hs, &mut half, &mut buf)?;
-        cf4_step(ham, t + 0.5 * hs, 0.5 * hs, &mut half, &mut buf)?;
+        cf4_step(ham, &seg, t, hs, &mut big, &mut buf)?;
+        cf4_step(ham, &seg, t, 0.5 * hs, &mut half, &mut buf)?;
+        cf4_step(ham, &seg, t + 0.5 * hs, 0.5 * hs, &mut half, &mut buf)?;
         evals += 6;
         let err = (half
             .iter()
@@ -1130,6 +1283,14 @@ impl SteadyPrepared {
     }
 
     fn rho(&mut self) -> Result<&[C64], Error> {
+        // Retuning can set a coincidentally static term rotating; the steady state needs none.
+        if let Some(t) = self.ham.terms().iter().find(|t| !t.is_static()) {
+            let name = |k: usize| self.atom.levels()[k].name().to_string();
+            return Err(Error::TimeDependentSteadyState {
+                term: format!("the coupling {} -> {}", name(t.lower), name(t.upper)),
+                nu_hz: t.nu / (2.0 * std::f64::consts::PI),
+            });
+        }
         self.ham.fill(0.5, &mut self.h);
         Ok(self.solver.solve(&self.h, &self.dissipator)?)
     }

@@ -4,9 +4,7 @@ use crate::atom::{Atom, LevelId};
 use crate::error::Error;
 use crate::field::HBAR;
 use crate::linalg::C64;
-
-/// Boltzmann constant k_B (J/K), exact in the 2019 SI (CODATA 2018).
-pub const K_B: f64 = 1.380_649e-23;
+use crate::sweep::BOLTZMANN as K_B;
 
 /// A normalised state: amplitudes c_k, or a density matrix ρ (row-major, `ρ[i*n + j]` = ρ_ij).
 #[derive(Clone, Debug, PartialEq)]

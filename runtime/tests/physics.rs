@@ -34,7 +34,8 @@ fn every_method_on_every_closed_form_model() {
                         method.name(),
                         model.source
                     ));
-                    if !(err <= tol) {
+                    // A NaN error must fail too.
+                    if err.is_nan() || err > tol {
                         failures.push(format!(
                             "{} / {}: error {err:e} > {tol:e}",
                             model.name,

@@ -99,6 +99,10 @@ pub struct RkConfig {
     pub fac_min: f64,
     /// Largest factor by which one step may grow the step size, >= 1.
     pub fac_max: f64,
+    /// Number of independent systems interleaved in the state (1 = one system): component i
+    /// belongs to system i mod `blocks`. The error norm is the largest of the systems' norms, so
+    /// each meets the tolerance as if it were integrated alone while all share one step sequence.
+    pub blocks: usize,
 }
 
 impl Default for RkConfig {
@@ -113,6 +117,7 @@ impl Default for RkConfig {
             safety: 0.9,
             fac_min: 0.2,
             fac_max: 10.0,
+            blocks: 1,
         }
     }
 }

@@ -237,6 +237,10 @@ pub fn uniform(t_end: f64, k: usize) -> Vec<f64> {
 fn tol_square_pure(m: Method) -> Option<(f64, &'static str)> {
     match m {
         Method::Auto | Method::Eigen => Some((1e-12, "exact eigen-propagation: rounding only")),
+        // The state is lifted to a density matrix and propagated by exp(𝓛t).
+        Method::LiouvillianExp => {
+            Some((1e-12, "Padé exponential of the Liouvillian: rounding only"))
+        }
         Method::Magnus4 => Some((
             1e-11,
             "CF4 is exact for constant H; rounding over many steps",
