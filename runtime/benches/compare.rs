@@ -53,14 +53,16 @@ fn min_seconds(v: &Value, key: &str) -> f64 {
     })
 }
 
-/// Time `f` (best of 3) and return (seconds, its error figure).
-fn time<F: FnMut() -> f64>(mut f: F) -> (f64, f64) {
+/// Time `f` (best of 3; only the computation, as the reference does) and return (seconds, the
+/// error figure `check` computes from its result afterwards).
+fn time<R>(f: &mut impl FnMut() -> R, check: &impl Fn(&R) -> f64) -> (f64, f64) {
     let mut best = f64::INFINITY;
     let mut err = 0.0;
     for _ in 0..3 {
         let t0 = Instant::now();
-        err = f();
+        let r = f();
         best = best.min(t0.elapsed().as_secs_f64());
+        err = check(&r);
     }
     (best, err)
 }
@@ -77,19 +79,21 @@ struct Row {
 
 /// Alternate Rust and Python runs; keep the best of each (the reference with 1 BLAS thread and
 /// with default threads, whichever was faster).
-fn compare<F: FnMut() -> f64>(
+#[allow(clippy::too_many_arguments)] // one row of the table: names, target, computation, check
+fn compare<R>(
     name: &str,
     problem: &str,
     extra: &[&str],
     target: f64,
-    mut ours: F,
+    mut ours: impl FnMut() -> R,
+    check: impl Fn(&R) -> f64,
     reference_err_key: &str,
 ) -> (Row, Option<Value>) {
     let (mut best_ours, mut ours_err) = (f64::INFINITY, 0.0);
     let (mut best_ref, mut ref_err, mut last) = (f64::INFINITY, f64::NAN, None);
     let mut threads_note = String::new();
     for _ in 0..ROUNDS {
-        let (t, e) = time(&mut ours);
+        let (t, e) = time(&mut ours, &check);
         if t < best_ours {
             best_ours = t;
             ours_err = e;
@@ -149,9 +153,9 @@ fn linspace(a: f64, b: f64, n: usize) -> Vec<f64> {
         .collect()
 }
 
-/// P1: 201 detunings × 201 durations of a square pulse; error vs the Rabi formula
-/// (Allen & Eberly, Optical Resonance and Two-Level Atoms, 1975).
-fn p1() -> f64 {
+/// P1: 201 detunings × 201 durations of a square pulse; returns the detunings, durations and
+/// P_e for each.
+fn p1_setup() -> (Prepared, Vec<f64>, Vec<f64>, f64) {
     let omega = 2.0 * PI * 1e6;
     let (atom, field) = two_level(omega, None);
     let times = linspace(0.0, 3e-6, 201);
@@ -168,19 +172,27 @@ fn p1() -> f64 {
     );
     p.samples = Samples::Times(times.clone());
     p.method = Method::Eigen;
-    let base = Prepared::new(&p).unwrap();
     let deltas = linspace(-2.0 * PI * 5e6, 2.0 * PI * 5e6, 201);
+    (Prepared::new(&p).unwrap(), deltas, times, omega)
+}
+
+fn p1_run(base: &Prepared, deltas: &[f64]) -> Vec<Vec<f64>> {
     use rayon::prelude::*;
-    let rows: Vec<Vec<f64>> = deltas
+    deltas
         .par_iter()
         .map(|&d| {
             let mut q = base.clone();
             q.retune(0, d);
             q.run().unwrap().series.swap_remove(0).values
         })
-        .collect();
+        .collect()
+}
+
+/// Worst deviation from the Rabi formula (Allen & Eberly, Optical Resonance and Two-Level Atoms,
+/// 1975, ch. 3).
+fn p1_error(rows: &[Vec<f64>], deltas: &[f64], times: &[f64], omega: f64) -> f64 {
     let mut worst = 0.0f64;
-    for (d, row) in deltas.iter().zip(&rows) {
+    for (d, row) in deltas.iter().zip(rows) {
         let w = (omega * omega + d * d).sqrt();
         for (t, p) in times.iter().zip(row) {
             let exact = omega * omega / (w * w) * (0.5 * w * t).sin().powi(2);
@@ -387,12 +399,14 @@ fn main() {
     );
 
     if want("p1") {
+        let (base, deltas, times, omega) = p1_setup();
         let (row, _) = compare(
             "P1 chevron 201×201 (eigen)",
             "p1",
             &[],
             0.5,
-            p1,
+            || p1_run(&base, &deltas),
+            |r| p1_error(r, &deltas, &times, omega),
             "max_error",
         );
         let per_point = row.ours / 40401.0;
@@ -423,8 +437,8 @@ fn main() {
             "p2",
             &[],
             0.2,
-            || {
-                let out = base.scan(1, &shifts).unwrap();
+            || base.scan(1, &shifts).unwrap(),
+            |out| {
                 idx.iter()
                     .zip(&ref_values)
                     .map(|(&i, r)| (out[i][0] - r).abs())
@@ -452,16 +466,14 @@ fn main() {
             "p3",
             &["--n", &ns],
             target,
-            || {
-                let sol = prepared.run().unwrap();
-                match &sol.final_state {
-                    State::Mixed(r) => r
-                        .iter()
-                        .zip(&reference)
-                        .map(|(a, b)| (a - b).norm())
-                        .fold(0.0, f64::max),
-                    State::Pure(_) => f64::NAN,
-                }
+            || prepared.run().unwrap(),
+            |sol| match &sol.final_state {
+                State::Mixed(r) => r
+                    .iter()
+                    .zip(&reference)
+                    .map(|(a, b)| (a - b).norm())
+                    .fold(0.0, f64::max),
+                State::Pure(_) => f64::NAN,
             },
             "max_error",
         );
@@ -477,17 +489,19 @@ fn main() {
     }
     if want("p4") {
         let (sp, deltas, gamma, omega) = p4_setup();
+        // Two-level steady state ρ_ee = (s/2)/(1 + s + 4Δ²/Γ²), s = 2Ω²/Γ² (Foot, Atomic
+        // Physics, OUP 2005, ch. 7).
+        let s = 2.0 * omega * omega / (gamma * gamma);
         let (row, _) = compare(
             "P4 steady state 10 001 Δ",
             "p4",
             &[],
             0.3,
-            || {
-                let out = sp.scan(0, &deltas).unwrap();
-                let s = 2.0 * omega * omega / (gamma * gamma);
+            || sp.scan(0, &deltas).unwrap(),
+            |out| {
                 deltas
                     .iter()
-                    .zip(&out)
+                    .zip(out)
                     .map(|(d, v)| {
                         (v[0] - (s / 2.0) / (1.0 + s + 4.0 * d * d / (gamma * gamma))).abs()
                     })

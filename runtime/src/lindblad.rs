@@ -613,11 +613,13 @@ fn check_model(n: usize, h: &[C64], d: &Dissipator) -> Result<(), LindbladError>
             index,
         });
     }
-    let scale = h.iter().map(|z| z.norm()).fold(0.0, f64::max);
+    // |re| + |im| bounds the modulus within √2 and avoids a hypot per entry on the hot path of
+    // steady-state sweeps.
+    let scale = h.iter().map(|z| z.l1_norm()).fold(0.0, f64::max);
     let mut worst = (0, 0, 0.0);
     for i in 0..n {
         for j in i..n {
-            let dev = (h[i * n + j] - h[j * n + i].conj()).norm();
+            let dev = (h[i * n + j] - h[j * n + i].conj()).l1_norm();
             if dev > worst.2 {
                 worst = (i, j, dev);
             }
@@ -1032,10 +1034,15 @@ pub fn propagate_constant(
 #[derive(Debug, Clone)]
 pub struct SteadyStateSolver {
     n: usize,
-    /// Row-major N²×N² system matrix, overwritten by the elimination.
-    a: Vec<C64>,
-    /// Right-hand side, overwritten by the solution vec(ρ).
+    /// Row-major N²×N² real system in the Hermitian parameterisation, overwritten by the
+    /// elimination.
+    a: Vec<f64>,
+    /// Right-hand side, overwritten by the real unknowns r.
+    r: Vec<f64>,
+    /// The solution vec(ρ), row-major.
     x: Vec<C64>,
+    /// (i, j) of each vec index i·n + j, so the assembly needs no integer division.
+    pairs: Vec<(usize, usize)>,
 }
 
 impl SteadyStateSolver {
@@ -1060,8 +1067,10 @@ impl SteadyStateSolver {
         let m = n * n;
         Ok(Self {
             n,
-            a: vec![C64::new(0.0, 0.0); m * m],
+            a: vec![0.0; m * m],
+            r: vec![0.0; m],
             x: vec![C64::new(0.0, 0.0); m],
+            pairs: (0..n).flat_map(|i| (0..n).map(move |j| (i, j))).collect(),
         })
     }
 
@@ -1085,36 +1094,76 @@ impl SteadyStateSolver {
         let n = self.n;
         check_model(n, h, d)?;
         let m = n * n;
+        // A steady state is Hermitian, so solve for N² real unknowns r instead of N² complex
+        // ones: r[a·n+a] = ρ_aa, and for a < b r[a·n+b] = Re ρ_ab, r[b·n+a] = Im ρ_ab. The
+        // equations are Re (𝓛ρ)_ij (slot i·n+j) and Im (𝓛ρ)_ij (slot j·n+i) for i ≤ j; the rows
+        // i > j are their complex conjugates. A real system of size N² costs an eighth of the
+        // complex one.
         let a = &mut self.a;
-        a.fill(C64::new(0.0, 0.0));
-        for_each_liouvillian_entry(n, h, d, |row, col, v| a[row * m + col] += v);
+        let pairs = &self.pairs;
+        a.fill(0.0);
+        for_each_liouvillian_entry(n, h, d, |p, q, v| {
+            let (i, j) = pairs[p];
+            if i > j {
+                return;
+            }
+            let (ka, kb) = pairs[q];
+            // ρ_q in terms of r: (slot, factor) pairs.
+            let mut add = |slot: usize, f: C64| {
+                let c = v * f;
+                a[(i * n + j) * m + slot] += c.re;
+                if i < j {
+                    a[(j * n + i) * m + slot] += c.im;
+                }
+            };
+            match ka.cmp(&kb) {
+                std::cmp::Ordering::Equal => add(q, C64::new(1.0, 0.0)),
+                std::cmp::Ordering::Less => {
+                    add(ka * n + kb, C64::new(1.0, 0.0));
+                    add(kb * n + ka, C64::new(0.0, 1.0));
+                }
+                std::cmp::Ordering::Greater => {
+                    add(kb * n + ka, C64::new(1.0, 0.0));
+                    add(ka * n + kb, C64::new(0.0, -1.0));
+                }
+            }
+        });
 
-        // Scale the trace row like the rest of the system so pivoting treats it fairly.
-        let scale = a.iter().map(|z| z.l1_norm()).fold(0.0, f64::max);
+        // Replace the ρ_00 equation by the trace condition (the population equations sum to
+        // zero, so it is redundant), scaled like the rest so pivoting treats it fairly.
+        let scale = a.iter().fold(0.0f64, |s, v| s.max(v.abs()));
         let scale = if scale > 0.0 { scale } else { 1.0 };
-        a[..m].fill(C64::new(0.0, 0.0));
+        a[..m].fill(0.0);
         for i in 0..n {
-            a[i * n + i] = C64::new(scale, 0.0);
+            a[i * n + i] = scale;
         }
-        let x = &mut self.x;
-        x.fill(C64::new(0.0, 0.0));
-        x[0] = C64::new(scale, 0.0);
+        let r = &mut self.r;
+        r.fill(0.0);
+        r[0] = scale;
 
-        let min_pivot = eliminate(a, x, m, 1);
+        let min_pivot = eliminate_real(a, r, m);
         let relative_pivot = min_pivot / scale;
         // A pivot at rounding level means a rank-deficient system (several steady states).
         if relative_pivot <= m as f64 * f64::EPSILON {
             return Err(LindbladError::Singular { n, relative_pivot });
         }
-
-        hermitise(n, x);
+        let x = &mut self.x;
+        for i in 0..n {
+            x[i * n + i] = C64::new(r[i * n + i], 0.0);
+            for j in i + 1..n {
+                let z = C64::new(r[i * n + j], r[j * n + i]);
+                x[i * n + j] = z;
+                x[j * n + i] = z.conj();
+            }
+        }
         let trace: f64 = (0..n).map(|i| x[i * n + i].re).sum();
         // A genuine density matrix has |ρ_ij| ≤ 1; anything else is the numerical
         // signature of a nearly singular system.
         let plausible = trace.is_finite()
             && trace > 0.0
-            && x.iter()
-                .all(|z| z.re.is_finite() && z.im.is_finite() && z.norm() <= 1.0 + 1e-6);
+            && x.iter().all(|z| {
+                z.re.is_finite() && z.im.is_finite() && z.norm_sqr() <= (1.0 + 1e-6) * (1.0 + 1e-6)
+            });
         if !plausible {
             return Err(LindbladError::Singular { n, relative_pivot });
         }
@@ -1123,6 +1172,58 @@ impl SteadyStateSolver {
         }
         Ok(x)
     }
+}
+
+/// Solves a·y = x in place for a real row-major m×m `a` by Gaussian elimination with partial
+/// pivoting, skipping zero entries; returns the smallest |pivot| (0 if `a` is exactly
+/// singular, in which case `x` is left unspecified).
+fn eliminate_real(a: &mut [f64], x: &mut [f64], m: usize) -> f64 {
+    let mut min_pivot = f64::INFINITY;
+    for k in 0..m {
+        let mut pivot_row = k;
+        let mut pivot_size = a[k * m + k].abs();
+        for i in k + 1..m {
+            let s = a[i * m + k].abs();
+            if s > pivot_size {
+                pivot_row = i;
+                pivot_size = s;
+            }
+        }
+        min_pivot = min_pivot.min(pivot_size);
+        if pivot_size == 0.0 {
+            return 0.0;
+        }
+        if pivot_row != k {
+            for col in k..m {
+                a.swap(k * m + col, pivot_row * m + col);
+            }
+            x.swap(k, pivot_row);
+        }
+        let (upper, lower) = a.split_at_mut((k + 1) * m);
+        let pivot_tail = &upper[k * m + k..k * m + m];
+        let inv = 1.0 / pivot_tail[0];
+        let xk = x[k];
+        for (off, row) in lower.chunks_exact_mut(m).enumerate() {
+            let a_ik = row[k];
+            if a_ik == 0.0 {
+                continue;
+            }
+            let factor = a_ik * inv;
+            for (e, &p) in row[k..].iter_mut().zip(pivot_tail) {
+                *e -= factor * p;
+            }
+            x[k + 1 + off] -= factor * xk;
+        }
+    }
+    for k in (0..m).rev() {
+        let row = &a[k * m..(k + 1) * m];
+        let mut acc = x[k];
+        for (j, &a_kj) in row.iter().enumerate().skip(k + 1) {
+            acc -= a_kj * x[j];
+        }
+        x[k] = acc / row[k];
+    }
+    min_pivot
 }
 
 /// Solves a·y = x in place by Gaussian elimination with partial pivoting: `a` is
@@ -1186,18 +1287,6 @@ fn eliminate(a: &mut [C64], x: &mut [C64], m: usize, r: usize) -> f64 {
         x_k.iter_mut().for_each(|e| *e *= inv);
     }
     min_pivot
-}
-
-/// Replaces ρ by (ρ + ρ†)/2 in place.
-fn hermitise(n: usize, rho: &mut [C64]) {
-    for i in 0..n {
-        rho[i * n + i].im = 0.0;
-        for j in (i + 1)..n {
-            let avg = 0.5 * (rho[i * n + j] + rho[j * n + i].conj());
-            rho[i * n + j] = avg;
-            rho[j * n + i] = avg.conj();
-        }
-    }
 }
 
 /// Steady state ρ (n×n row-major, Tr ρ = 1, Hermitian) of the master equation with

@@ -399,7 +399,7 @@ impl Prepared {
             Method::Auto | Method::DormandPrince54 | Method::DormandPrince853
         );
         if density || !batchable || field >= self.ham.shifts.len() {
-            return scan_chunks(self, shifts, |p, s| {
+            return scan_chunks(self, shifts, SCAN_CHUNK, |p, s| {
                 p.retune(field, s);
                 p.run_final()
             });
@@ -762,16 +762,20 @@ impl Prepared {
 
 /// Points per parallel task of a scan: fixed, so results never depend on the thread count.
 const SCAN_CHUNK: usize = 32;
+/// Points per parallel task of a steady-state scan: each point is a cheap linear solve, so the
+/// chunks are larger to amortise the per-task clone.
+const STEADY_SCAN_CHUNK: usize = 512;
 
 /// Map `f` over `shifts` with one clone of `base` per fixed-size chunk, in parallel.
 fn scan_chunks<P: Clone + Sync + Send>(
     base: &P,
     shifts: &[f64],
+    chunk: usize,
     f: impl Fn(&mut P, f64) -> Result<Vec<f64>, Error> + Sync,
 ) -> Result<Vec<Vec<f64>>, Error> {
     use rayon::prelude::*;
     let chunks: Vec<Result<Vec<Vec<f64>>, Error>> = shifts
-        .par_chunks(SCAN_CHUNK)
+        .par_chunks(chunk)
         .map(|chunk| {
             let mut p = base.clone();
             chunk.iter().map(|&s| f(&mut p, s)).collect()
@@ -1276,7 +1280,7 @@ impl SteadyPrepared {
     /// Steady observable values with field `field` retuned by each of `shifts` (rad/s), in
     /// parallel over fixed chunks.
     pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
-        scan_chunks(self, shifts, |p, s| {
+        scan_chunks(self, shifts, STEADY_SCAN_CHUNK, |p, s| {
             p.retune(field, s);
             p.values()
         })
@@ -1298,7 +1302,7 @@ impl SteadyPrepared {
     /// The observables' steady values, concatenated.
     pub fn values(&mut self) -> Result<Vec<f64>, Error> {
         self.rho()?;
-        let mut out = Vec::new();
+        let mut out = Vec::with_capacity(self.observables.iter().map(Observable::width).sum());
         let rho = self.solver_state();
         for o in &self.observables {
             o.evaluate_mixed(&self.atom, rho, &mut out);
