@@ -441,7 +441,7 @@ fn main() {
             |out| {
                 idx.iter()
                     .zip(&ref_values)
-                    .map(|(&i, r)| (out[i][0] - r).abs())
+                    .map(|(&i, r)| (out.row(i)[0] - r).abs())
                     .fold(0.0, f64::max)
             },
             "max_error",
@@ -501,10 +501,8 @@ fn main() {
             |out| {
                 deltas
                     .iter()
-                    .zip(out)
-                    .map(|(d, v)| {
-                        (v[0] - (s / 2.0) / (1.0 + s + 4.0 * d * d / (gamma * gamma))).abs()
-                    })
+                    .zip(out.values())
+                    .map(|(d, v)| (v - (s / 2.0) / (1.0 + s + 4.0 * d * d / (gamma * gamma))).abs())
                     .fold(0.0, f64::max)
             },
             "max_error",

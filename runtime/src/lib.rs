@@ -61,8 +61,8 @@ pub mod prelude {
     pub use crate::observe::Observable;
     pub use crate::sequence::{Pulse, Sequence};
     pub use crate::solve::{
-        Method, Prepared, Problem, Samples, Solution, SteadyPrepared, SteadyProblem, Tolerance,
-        solve, steady_state,
+        Method, Prepared, Problem, Samples, ScanTable, Solution, SteadyPrepared, SteadyProblem,
+        Tolerance, solve, steady_state,
     };
     pub use crate::state::State;
     pub use crate::sweep::{Axis, Ensemble, Grid, SweepOptions, run_grid};

@@ -392,32 +392,34 @@ impl Prepared {
     /// Pure-state problems integrate each chunk as one stacked system whose error control
     /// holds every point to the tolerance on its own (the norm is the worst point's), sharing
     /// envelope evaluations and steps; others run point by point.
-    pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
+    pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<ScanTable, Error> {
+        let width = self.observables.iter().map(Observable::width).sum();
         let density = self.is_density();
         let batchable = matches!(
             self.method,
             Method::Auto | Method::DormandPrince54 | Method::DormandPrince853
         );
         if density || !batchable || field >= self.ham.shifts.len() {
-            return scan_chunks(self, shifts, SCAN_CHUNK, |p, s| {
+            return scan_chunks(self, shifts, SCAN_CHUNK, width, |p, s, out| {
                 p.retune(field, s);
-                p.run_final()
+                out.extend(p.run_final()?);
+                Ok(())
             });
         }
         use rayon::prelude::*;
-        let chunks: Vec<Result<Vec<Vec<f64>>, Error>> = shifts
+        let chunks: Vec<Result<Vec<f64>, Error>> = shifts
             .par_chunks(SCAN_CHUNK)
             .map(|c| self.run_final_batch(field, c))
             .collect();
-        let mut out = Vec::with_capacity(shifts.len());
+        let mut values = Vec::with_capacity(shifts.len() * width);
         for c in chunks {
-            out.extend(c?);
+            values.extend(c?);
         }
-        Ok(out)
+        Ok(ScanTable { width, values })
     }
 
     /// Final observables of K pure-state copies with `field` retuned to each shift.
-    fn run_final_batch(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
+    fn run_final_batch(&self, field: usize, shifts: &[f64]) -> Result<Vec<f64>, Error> {
         let n = self.atom.n();
         let k = shifts.len();
         let State::Pure(c0) = &self.initial else {
@@ -491,16 +493,20 @@ impl Prepared {
                 }
             }
         }
-        let mut out = Vec::with_capacity(k);
+        let mut out = Vec::with_capacity(
+            k * self
+                .observables
+                .iter()
+                .map(Observable::width)
+                .sum::<usize>(),
+        );
         for c in 0..k {
             for j in 0..n {
                 copy[j] = y[j * k + c];
             }
-            let mut v = Vec::new();
             for o in &self.observables {
-                o.evaluate_pure(&self.atom, &copy, &mut v);
+                o.evaluate_pure(&self.atom, &copy, &mut out);
             }
-            out.push(v);
         }
         Ok(out)
     }
@@ -760,32 +766,68 @@ impl Prepared {
     }
 }
 
+/// The result of a scan: one row of observable values per point, stored flat.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ScanTable {
+    width: usize,
+    values: Vec<f64>,
+}
+
+impl ScanTable {
+    /// Values per point (the observables' widths summed).
+    pub fn width(&self) -> usize {
+        self.width
+    }
+    /// Number of points.
+    pub fn len(&self) -> usize {
+        self.values.len().checked_div(self.width).unwrap_or(0)
+    }
+    /// Whether the scan had no points.
+    pub fn is_empty(&self) -> bool {
+        self.values.is_empty()
+    }
+    /// The values of point `i`.
+    pub fn row(&self, i: usize) -> &[f64] {
+        &self.values[i * self.width..(i + 1) * self.width]
+    }
+    /// All values, point-major.
+    pub fn values(&self) -> &[f64] {
+        &self.values
+    }
+}
+
 /// Points per parallel task of a scan: fixed, so results never depend on the thread count.
 const SCAN_CHUNK: usize = 32;
 /// Points per parallel task of a steady-state scan: each point is a cheap linear solve, so the
 /// chunks are larger to amortise the per-task clone.
 const STEADY_SCAN_CHUNK: usize = 512;
 
-/// Map `f` over `shifts` with one clone of `base` per fixed-size chunk, in parallel.
+/// Map `f` over `shifts` with one clone of `base` per fixed-size chunk, in parallel; `f` appends
+/// each point's `width` values to the chunk's buffer.
 fn scan_chunks<P: Clone + Sync + Send>(
     base: &P,
     shifts: &[f64],
     chunk: usize,
-    f: impl Fn(&mut P, f64) -> Result<Vec<f64>, Error> + Sync,
-) -> Result<Vec<Vec<f64>>, Error> {
+    width: usize,
+    f: impl Fn(&mut P, f64, &mut Vec<f64>) -> Result<(), Error> + Sync,
+) -> Result<ScanTable, Error> {
     use rayon::prelude::*;
-    let chunks: Vec<Result<Vec<Vec<f64>>, Error>> = shifts
+    let chunks: Vec<Result<Vec<f64>, Error>> = shifts
         .par_chunks(chunk)
         .map(|chunk| {
             let mut p = base.clone();
-            chunk.iter().map(|&s| f(&mut p, s)).collect()
+            let mut out = Vec::with_capacity(chunk.len() * width);
+            for &s in chunk {
+                f(&mut p, s, &mut out)?;
+            }
+            Ok(out)
         })
         .collect();
-    let mut out = Vec::with_capacity(shifts.len());
+    let mut values = Vec::with_capacity(shifts.len() * width);
     for c in chunks {
-        out.extend(c?);
+        values.extend(c?);
     }
-    Ok(out)
+    Ok(ScanTable { width, values })
 }
 
 /// Evolve a problem and record its observables.
@@ -1279,10 +1321,11 @@ impl SteadyPrepared {
 
     /// Steady observable values with field `field` retuned by each of `shifts` (rad/s), in
     /// parallel over fixed chunks.
-    pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<Vec<Vec<f64>>, Error> {
-        scan_chunks(self, shifts, STEADY_SCAN_CHUNK, |p, s| {
+    pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<ScanTable, Error> {
+        let width = self.observables.iter().map(Observable::width).sum();
+        scan_chunks(self, shifts, STEADY_SCAN_CHUNK, width, |p, s, out| {
             p.retune(field, s);
-            p.values()
+            p.values_into(out)
         })
     }
 
@@ -1301,13 +1344,19 @@ impl SteadyPrepared {
 
     /// The observables' steady values, concatenated.
     pub fn values(&mut self) -> Result<Vec<f64>, Error> {
-        self.rho()?;
         let mut out = Vec::with_capacity(self.observables.iter().map(Observable::width).sum());
-        let rho = self.solver_state();
-        for o in &self.observables {
-            o.evaluate_mixed(&self.atom, rho, &mut out);
-        }
+        self.values_into(&mut out)?;
         Ok(out)
+    }
+
+    /// Append the observables' steady values to `out`.
+    pub fn values_into(&mut self, out: &mut Vec<f64>) -> Result<(), Error> {
+        self.rho()?;
+        let rho = self.solver.solution();
+        for o in &self.observables {
+            o.evaluate_mixed(&self.atom, rho, out);
+        }
+        Ok(())
     }
 
     /// The full steady state with its observables.
