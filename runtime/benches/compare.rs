@@ -15,7 +15,7 @@ use serde_json::Value;
 /// Rust threads used for every sweep (fixed so results are comparable run to run).
 const THREADS: usize = 2;
 /// A/B rounds per problem.
-const ROUNDS: usize = 3;
+const ROUNDS: usize = 5;
 
 fn reference_dir() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("benches/reference")

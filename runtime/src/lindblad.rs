@@ -1108,23 +1108,25 @@ impl SteadyStateSolver {
                 return;
             }
             let (ka, kb) = pairs[q];
-            // ρ_q in terms of r: (slot, factor) pairs.
-            let mut add = |slot: usize, f: C64| {
-                let c = v * f;
-                a[(i * n + j) * m + slot] += c.re;
+            // ρ_q in terms of r: ρ_aa = r_aa; ρ_ab = r_ab + i r_ba (a < b); ρ_ba = r_ab − i r_ba.
+            // Each coefficient is v, i·v or −i·v, written out to avoid complex products.
+            let re_row = (i * n + j) * m;
+            let im_row = (j * n + i) * m;
+            let mut add = |slot: usize, c_re: f64, c_im: f64| {
+                a[re_row + slot] += c_re;
                 if i < j {
-                    a[(j * n + i) * m + slot] += c.im;
+                    a[im_row + slot] += c_im;
                 }
             };
             match ka.cmp(&kb) {
-                std::cmp::Ordering::Equal => add(q, C64::new(1.0, 0.0)),
+                std::cmp::Ordering::Equal => add(q, v.re, v.im),
                 std::cmp::Ordering::Less => {
-                    add(ka * n + kb, C64::new(1.0, 0.0));
-                    add(kb * n + ka, C64::new(0.0, 1.0));
+                    add(ka * n + kb, v.re, v.im);
+                    add(kb * n + ka, -v.im, v.re);
                 }
                 std::cmp::Ordering::Greater => {
-                    add(kb * n + ka, C64::new(1.0, 0.0));
-                    add(ka * n + kb, C64::new(0.0, -1.0));
+                    add(kb * n + ka, v.re, v.im);
+                    add(ka * n + kb, v.im, -v.re);
                 }
             }
         });

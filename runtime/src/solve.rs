@@ -800,7 +800,7 @@ impl ScanTable {
 const SCAN_CHUNK: usize = 32;
 /// Points per parallel task of a steady-state scan: each point is a cheap linear solve, so the
 /// chunks are larger to amortise the per-task clone.
-const STEADY_SCAN_CHUNK: usize = 512;
+const STEADY_SCAN_CHUNK: usize = 256;
 
 /// Map `f` over `shifts` with one clone of `base` per fixed-size chunk, in parallel; `f` appends
 /// each point's `width` values to the chunk's buffer.
