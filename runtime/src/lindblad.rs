@@ -539,6 +539,38 @@ pub fn commutator(n: usize, h: &[C64], rho: &[C64], drho: &mut [C64]) -> Result<
     Ok(())
 }
 
+/// out = H·ρ (row-major, n × n), the O(N³) part of the commutator; on x86-64 with AVX2 and FMA
+/// (detected at run time) the same loops are compiled for the wider registers.
+fn product_into(n: usize, h: &[C64], rho: &[C64], out: &mut [C64]) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+            // SAFETY: the CPU supports the features the function is compiled for.
+            unsafe { product_into_avx2(n, h, rho, out) };
+            return;
+        }
+    }
+    product_into_portable(n, h, rho, out)
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+fn product_into_avx2(n: usize, h: &[C64], rho: &[C64], out: &mut [C64]) {
+    product_into_portable(n, h, rho, out)
+}
+
+#[inline(always)]
+fn product_into_portable(n: usize, h: &[C64], rho: &[C64], out: &mut [C64]) {
+    for (row, h_row) in out.chunks_exact_mut(n).zip(h.chunks_exact(n)) {
+        row.fill(C64::new(0.0, 0.0));
+        for (&h_ik, rho_k) in h_row.iter().zip(rho.chunks_exact(n)) {
+            for (o, &r) in row.iter_mut().zip(rho_k) {
+                *o += h_ik * r;
+            }
+        }
+    }
+}
+
 /// Sets `drho = −i(Hρ − ρH)` assuming both `h` and `rho` are Hermitian, in N³ complex
 /// multiply-adds instead of 2N³.
 ///
@@ -561,14 +593,7 @@ pub fn commutator_hermitian(
     if n == 0 {
         return Ok(());
     }
-    for (out, h_row) in drho.chunks_exact_mut(n).zip(h.chunks_exact(n)) {
-        out.fill(C64::new(0.0, 0.0));
-        for (&h_ik, rho_k) in h_row.iter().zip(rho.chunks_exact(n)) {
-            for (o, &r) in out.iter_mut().zip(rho_k) {
-                *o += h_ik * r;
-            }
-        }
-    }
+    product_into(n, h, rho, drho);
     // drho holds M = Hρ; overwrite in place with −i(M − M†).
     for i in 0..n {
         let m_ii = drho[i * n + i];
