@@ -265,7 +265,7 @@ impl Hamiltonian {
     /// rotations follow, exactly. Which terms are kept (the spanning forest and the cutoff) stays
     /// as decided at the declared carriers, and so does the frame report; rebuild the problem
     /// when a retuning should change those decisions. The shift is absolute (calling twice with
-    /// the same value changes nothing).
+    /// the same value changes nothing); an index beyond the fields changes nothing either.
     pub fn retune(&mut self, field: usize, shift: f64) {
         let Some(old) = self.shifts.get_mut(field) else {
             return;

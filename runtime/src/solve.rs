@@ -393,13 +393,14 @@ impl Prepared {
     /// holds every point to the tolerance on its own (the norm is the worst point's), sharing
     /// envelope evaluations and steps; others run point by point.
     pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<ScanTable, Error> {
+        check_field(field, self.ham.shifts.len())?;
         let width = self.observables.iter().map(Observable::width).sum();
         let density = self.is_density();
         let batchable = matches!(
             self.method,
             Method::Auto | Method::DormandPrince54 | Method::DormandPrince853
         );
-        if density || !batchable || field >= self.ham.shifts.len() {
+        if density || !batchable {
             return scan_chunks(self, shifts, SCAN_CHUNK, width, |p, s, out| {
                 p.retune(field, s);
                 out.extend(p.run_final()?);
@@ -786,7 +787,7 @@ impl ScanTable {
     pub fn is_empty(&self) -> bool {
         self.values.is_empty()
     }
-    /// The values of point `i`.
+    /// The values of point `i` (panics when `i ≥ len()`, like slice indexing).
     pub fn row(&self, i: usize) -> &[f64] {
         &self.values[i * self.width..(i + 1) * self.width]
     }
@@ -801,6 +802,20 @@ const SCAN_CHUNK: usize = 32;
 /// Points per parallel task of a steady-state scan: each point is a cheap linear solve, so the
 /// chunks are larger to amortise the per-task clone.
 const STEADY_SCAN_CHUNK: usize = 256;
+
+/// A scan must name one of the problem's fields.
+fn check_field(field: usize, count: usize) -> Result<(), Error> {
+    if field < count {
+        Ok(())
+    } else {
+        Err(Error::UnknownIndex {
+            what: "a scan".into(),
+            kind: "field",
+            index: field,
+            count,
+        })
+    }
+}
 
 /// Map `f` over `shifts` with one clone of `base` per fixed-size chunk, in parallel; `f` appends
 /// each point's `width` values to the chunk's buffer.
@@ -1322,6 +1337,7 @@ impl SteadyPrepared {
     /// Steady observable values with field `field` retuned by each of `shifts` (rad/s), in
     /// parallel over fixed chunks.
     pub fn scan(&self, field: usize, shifts: &[f64]) -> Result<ScanTable, Error> {
+        check_field(field, self.ham.shifts.len())?;
         let width = self.observables.iter().map(Observable::width).sum();
         scan_chunks(self, shifts, STEADY_SCAN_CHUNK, width, |p, s, out| {
             p.retune(field, s);

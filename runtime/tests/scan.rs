@@ -135,3 +135,12 @@ fn steady_scan_matches_the_formula_and_single_solves() {
         table.row(700)[0].to_bits()
     );
 }
+
+#[test]
+fn scanning_an_unknown_field_is_an_error() {
+    let (base, shifts) = stirap();
+    assert!(matches!(
+        base.scan(7, &shifts),
+        Err(Error::UnknownIndex { index: 7, .. })
+    ));
+}
