@@ -1068,6 +1068,10 @@ pub struct SteadyStateSolver {
     x: Vec<C64>,
     /// (i, j) of each vec index i·n + j, so the assembly needs no integer division.
     pairs: Vec<(usize, usize)>,
+    /// The last model's system without the contribution of H's diagonal, with the off-diagonal
+    /// part of H and the dissipator it was built from: a detuning scan changes only the
+    /// diagonal, so the assembly is reused and patched.
+    cache: Option<(Vec<C64>, Dissipator, Vec<f64>)>,
 }
 
 impl SteadyStateSolver {
@@ -1096,6 +1100,7 @@ impl SteadyStateSolver {
             r: vec![0.0; m],
             x: vec![C64::new(0.0, 0.0); m],
             pairs: (0..n).flat_map(|i| (0..n).map(move |j| (i, j))).collect(),
+            cache: None,
         })
     }
 
@@ -1104,29 +1109,14 @@ impl SteadyStateSolver {
         self.n
     }
 
-    /// Solves 𝓛 vec(ρ) = 0 with Tr ρ = 1 for Hamiltonian `h` (n×n row-major, Hermitian,
-    /// rad/s) and dissipator `d`, returning the hermitised ρ (n×n row-major), which
-    /// stays valid until the next solve.
-    ///
-    /// The equation for ρ_00 is replaced by the trace condition: the population
-    /// equations sum to zero (trace preservation), so that row is redundant. The system
-    /// is solved by Gaussian elimination with partial pivoting, skipping the many zero
-    /// entries of the sparse Liouvillian.
-    ///
-    /// Errors: those of [`liouvillian`], plus `Singular` when the model has no unique
-    /// steady state (e.g. decoupled subspaces, or no dissipation at all).
-    pub fn solve(&mut self, h: &[C64], d: &Dissipator) -> Result<&[C64], LindbladError> {
-        let n = self.n;
-        check_model(n, h, d)?;
+    /// Add the real-parameterised Liouvillian of (h, d) to `a` (see `solve`).
+    /// A steady state is Hermitian, so solve for N² real unknowns r instead of N² complex
+    /// ones: r[a·n+a] = ρ_aa, and for a < b r[a·n+b] = Re ρ_ab, r[b·n+a] = Im ρ_ab. The
+    /// equations are Re (𝓛ρ)_ij (slot i·n+j) and Im (𝓛ρ)_ij (slot j·n+i) for i ≤ j; the rows
+    /// i > j are their complex conjugates. A real system of size N² costs an eighth of the
+    /// complex one.
+    fn assemble(n: usize, pairs: &[(usize, usize)], h: &[C64], d: &Dissipator, a: &mut [f64]) {
         let m = n * n;
-        // A steady state is Hermitian, so solve for N² real unknowns r instead of N² complex
-        // ones: r[a·n+a] = ρ_aa, and for a < b r[a·n+b] = Re ρ_ab, r[b·n+a] = Im ρ_ab. The
-        // equations are Re (𝓛ρ)_ij (slot i·n+j) and Im (𝓛ρ)_ij (slot j·n+i) for i ≤ j; the rows
-        // i > j are their complex conjugates. A real system of size N² costs an eighth of the
-        // complex one.
-        let a = &mut self.a;
-        let pairs = &self.pairs;
-        a.fill(0.0);
         for_each_liouvillian_entry(n, h, d, |p, q, v| {
             let (i, j) = pairs[p];
             if i > j {
@@ -1155,6 +1145,61 @@ impl SteadyStateSolver {
                 }
             }
         });
+    }
+
+    /// Solves 𝓛 vec(ρ) = 0 with Tr ρ = 1 for Hamiltonian `h` (n×n row-major, Hermitian,
+    /// rad/s) and dissipator `d`, returning the hermitised ρ (n×n row-major), which
+    /// stays valid until the next solve.
+    ///
+    /// The equation for ρ_00 is replaced by the trace condition: the population
+    /// equations sum to zero (trace preservation), so that row is redundant. The system
+    /// is solved by Gaussian elimination with partial pivoting, skipping the many zero
+    /// entries of the sparse Liouvillian.
+    ///
+    /// Errors: those of [`liouvillian`], plus `Singular` when the model has no unique
+    /// steady state (e.g. decoupled subspaces, or no dissipation at all).
+    pub fn solve(&mut self, h: &[C64], d: &Dissipator) -> Result<&[C64], LindbladError> {
+        let n = self.n;
+        let m = n * n;
+        let off_diagonal_equal = |cached: &[C64]| {
+            (0..n).all(|i| (0..n).all(|j| i == j || cached[i * n + j] == h[i * n + j]))
+        };
+        // A finite, real diagonal on an unchanged rest of the model reuses the assembly.
+        let real_diagonal = h.len() == m
+            && (0..n).all(|k| {
+                let z = h[k * n + k];
+                z.re.is_finite() && z.im == 0.0
+            });
+        let hit = real_diagonal
+            && self
+                .cache
+                .as_ref()
+                .is_some_and(|(ch, cd, _)| cd == d && off_diagonal_equal(ch));
+        if !hit {
+            // Full checks (sizes, finiteness, hermiticity); a diagonal imaginary part within
+            // the hermiticity tolerance is rounding and is dropped below.
+            check_model(n, h, d)?;
+            let mut h_off = h.to_vec();
+            for k in 0..n {
+                h_off[k * n + k] = C64::new(0.0, 0.0);
+            }
+            self.a.fill(0.0);
+            Self::assemble(n, &self.pairs, &h_off, d, &mut self.a);
+            self.cache = Some((h_off, d.clone(), self.a.clone()));
+        }
+        let a = &mut self.a;
+        if let Some((_, _, base)) = &self.cache {
+            a.copy_from_slice(base);
+        }
+        // H's diagonal enters only −i(H_ii − H_jj)ρ_ij: with ρ_ij = x + iy, the real equation of
+        // (i, j) gains (H_ii − H_jj)·y and the imaginary one −(H_ii − H_jj)·x.
+        for i in 0..n {
+            for j in i + 1..n {
+                let dw = h[i * n + i].re - h[j * n + j].re;
+                a[(i * n + j) * m + (j * n + i)] += dw;
+                a[(j * n + i) * m + (i * n + j)] -= dw;
+            }
+        }
 
         // Replace the ρ_00 equation by the trace condition (the population equations sum to
         // zero, so it is redundant), scaled like the rest so pivoting treats it fairly.

@@ -798,7 +798,7 @@ impl ScanTable {
 }
 
 /// Points per parallel task of a scan: fixed, so results never depend on the thread count.
-const SCAN_CHUNK: usize = 32;
+const SCAN_CHUNK: usize = 64;
 /// Points per parallel task of a steady-state scan: each point is a cheap linear solve, so the
 /// chunks are larger to amortise the per-task clone.
 const STEADY_SCAN_CHUNK: usize = 256;
