@@ -180,6 +180,7 @@ fn p1_run(base: &Prepared, deltas: &[f64]) -> Vec<Vec<f64>> {
     use rayon::prelude::*;
     deltas
         .par_iter()
+        .with_min_len(16)
         .map(|&d| {
             let mut q = base.clone();
             q.retune(0, d);

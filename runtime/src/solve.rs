@@ -3,6 +3,7 @@
 //! steady state, and the diagnostics every result carries.
 
 use std::cell::RefCell;
+use std::sync::Arc;
 
 use crate::atom::Atom;
 use crate::error::Error;
@@ -171,8 +172,9 @@ pub struct Solution {
     pub final_state: State,
     /// Method and accuracy figures.
     pub diagnostics: Diagnostics,
-    /// Every term of the frame and what was done with it.
-    pub frame: FrameReport,
+    /// Every term of the frame and what was done with it (shared by every run of a
+    /// [`Prepared`] problem).
+    pub frame: Arc<FrameReport>,
 }
 
 impl Solution {
@@ -188,15 +190,18 @@ impl Solution {
 
 /// A problem with its frame built and checked, ready to run many times (e.g. across a
 /// detuning sweep with [`Prepared::retune`]).
+///
+/// Cloning is cheap: the parts a retuning never changes (atom, frame report, observables, sample
+/// times) are shared.
 #[derive(Clone, Debug)]
 pub struct Prepared {
-    atom: Atom,
+    atom: Arc<Atom>,
     ham: Hamiltonian,
-    report: FrameReport,
+    report: Arc<FrameReport>,
     dissipator: Option<Dissipator>,
     initial: State,
-    observables: Vec<Observable>,
-    samples: Vec<f64>,
+    observables: Arc<[Observable]>,
+    samples: Arc<[f64]>,
     method: Method,
     tolerance: Tolerance,
     max_steps: u64,
@@ -342,13 +347,13 @@ impl Prepared {
             }
         };
         Ok(Self {
-            atom: p.atom.clone(),
+            atom: Arc::new(p.atom.clone()),
             ham,
-            report,
+            report: Arc::new(report),
             dissipator,
             initial: p.initial.clone(),
-            observables,
-            samples,
+            observables: observables.into(),
+            samples: samples.into(),
             method: p.method,
             tolerance: p.tolerance,
             max_steps: p.max_steps,
@@ -464,7 +469,7 @@ impl Prepared {
                         for j in 0..n {
                             copy[j] = y[j * k + c];
                         }
-                        eigen_pure(h, a, b, &mut copy, &[], &mut |_, _, _| {})?;
+                        eigen_pure(h, a, b, &mut copy, &[], |_, _, _| {})?;
                         for j in 0..n {
                             y[j * k + c] = copy[j];
                         }
@@ -505,7 +510,7 @@ impl Prepared {
             for j in 0..n {
                 copy[j] = y[j * k + c];
             }
-            for o in &self.observables {
+            for o in self.observables.iter() {
                 o.evaluate_pure(&self.atom, &copy, &mut out);
             }
         }
@@ -538,7 +543,7 @@ impl Prepared {
             })
             .collect();
         Ok(Solution {
-            times: self.samples.clone(),
+            times: self.samples.to_vec(),
             series,
             final_state,
             diagnostics,
@@ -551,7 +556,7 @@ impl Prepared {
         let mut rec = Recorder::final_only(&self.atom, &self.observables);
         let (state, _) = self.propagate(&mut rec)?;
         let mut out = Vec::new();
-        for o in &self.observables {
+        for o in self.observables.iter() {
             o.evaluate(&self.atom, &state, &mut out);
         }
         Ok(out)
@@ -594,8 +599,11 @@ impl Prepared {
             let mut on_sample =
                 |i: usize, _t: f64, state: &[C64]| rec.record(first + i, state, density);
             match method {
+                // Called with a closure of its own so the per-sample recording inlines.
                 Method::Eigen if !density => {
-                    eigen_pure(&self.ham, a, b, &mut y, samples, &mut on_sample)?
+                    eigen_pure(&self.ham, a, b, &mut y, samples, |i, _, state| {
+                        rec.record(first + i, state, false)
+                    })?
                 }
                 Method::Eigen => eigen_mixed(&self.ham, a, b, &mut y, samples, &mut on_sample)?,
                 Method::LiouvillianExp => {
@@ -906,6 +914,7 @@ impl<'a> Recorder<'a> {
             drift: 0.0,
         }
     }
+    #[inline]
     fn record(&mut self, _index: usize, y: &[C64], density: bool) {
         let n = self.atom.n();
         let norm: f64 = if density {
@@ -1010,7 +1019,7 @@ fn eigen_pure(
     b: f64,
     y: &mut [C64],
     samples: &[f64],
-    on: &mut OnSample,
+    mut on: impl FnMut(usize, f64, &[C64]),
 ) -> Result<(), Error> {
     let e = midpoint_eigen(ham, a, b)?;
     let n = ham.n();
@@ -1018,28 +1027,9 @@ fn eigen_pure(
     let mut out = vec![C64::new(0.0, 0.0); n];
     e.to_eigenbasis(y, &mut w);
     if let Some(dt) = uniform_step(samples) {
-        // Equally spaced samples: advance the eigenphases by one fixed factor per sample and
-        // re-anchor them exactly every ANCHOR samples, so rounding never exceeds ~ANCHOR ulps.
-        const ANCHOR: usize = 32;
-        let step: Vec<C64> = e
-            .values()
-            .iter()
-            .map(|l| C64::from_polar(1.0, -l * dt))
-            .collect();
-        let mut wt = vec![C64::new(0.0, 0.0); n];
-        for (i, &t) in samples.iter().enumerate() {
-            if i % ANCHOR == 0 {
-                for k in 0..n {
-                    wt[k] = w[k] * C64::from_polar(1.0, -e.values()[k] * (t - a));
-                }
-            } else {
-                for k in 0..n {
-                    wt[k] *= step[k];
-                }
-            }
-            e.from_eigenbasis(&wt, &mut out);
-            on(i, t, &out);
-        }
+        e.sample_uniform(&w, samples[0] - a, dt, samples.len(), |i, c| {
+            on(i, samples[i], c)
+        });
     } else {
         for (i, &t) in samples.iter().enumerate() {
             e.evolve_from_eigenbasis(&w, t - a, &mut out);
