@@ -78,8 +78,14 @@ fn demo() -> Result<(), Error> {
     let g = b.level("g", 0.0);
     let r = b.level("r", 2.0 * PI * 6.834e9);
     let x = b.level("x", 2.0 * PI * 384.23e12);
-    let p_tr = b.transition(g, x);
-    let s_tr = b.transition(r, x);
+    // The pump drives g → x with σ⁺ light and the Stokes beam r → x with σ⁻ light, so each beam
+    // couples only its own leg of the Λ.
+    let (z, d) = (
+        C64::new(0.0, 0.0),
+        C64::new(fieldbook_runtime::atom::E_A0, 0.0),
+    );
+    let p_tr = b.transition_with_dipole(g, x, [z, z, d]);
+    let s_tr = b.transition_with_dipole(r, x, [d, z, z]);
     let atom = b.build()?;
     let omega = 2.0 * PI * 5e6;
     let sigma = 1e-6;
@@ -93,7 +99,8 @@ fn demo() -> Result<(), Error> {
             transition: p_tr,
             rabi: omega,
         },
-    );
+    )
+    .with_polarization(Polarization::sigma_plus());
     let stokes = Field::new(
         "stokes",
         Carrier::Detuning {
@@ -104,7 +111,8 @@ fn demo() -> Result<(), Error> {
             transition: s_tr,
             rabi: omega,
         },
-    );
+    )
+    .with_polarization(Polarization::sigma_minus());
     let gauss = Envelope::new(Shape::Gaussian { sigma }, 10e-6)?;
     // Counter-intuitive order: the Stokes pulse peaks 1 µs before the pump.
     let seq = Sequence::builder()
@@ -123,5 +131,14 @@ fn demo() -> Result<(), Error> {
         "STIRAP g → r: P(r) = {:.6}, P(x) = {:.2e} ({}; {} steps, norm drift {:.1e})",
         v[0], v[1], sol.diagnostics.method, sol.diagnostics.steps, sol.diagnostics.norm_drift
     );
+    for note in &sol.frame.notes {
+        println!(
+            "  frame: {} on {}: {:?} (rotation 2π × {:.4e} Hz)",
+            note.field,
+            note.transition,
+            note.fate,
+            note.rotation / (2.0 * PI)
+        );
+    }
     Ok(())
 }
