@@ -12,6 +12,9 @@ use fieldbook_runtime::hamiltonian::Hamiltonian;
 use fieldbook_runtime::prelude::*;
 use serde_json::Value;
 
+#[path = "../tests/common/mod.rs"]
+mod common;
+
 /// Rust threads used for every sweep (fixed so results are comparable run to run).
 const THREADS: usize = 2;
 /// A/B rounds per problem.
@@ -203,63 +206,10 @@ fn p1_error(rows: &[Vec<f64>], deltas: &[f64], times: &[f64], omega: f64) -> f64
     worst
 }
 
-/// P2: STIRAP in a Λ system, 1001 two-photon detunings, final P_r; error vs the reference's
-/// tight-tolerance values.
+/// P2: STIRAP in a Λ system (the test catalogue's model), 1001 two-photon detunings, final P_r;
+/// error vs the reference's tight-tolerance values.
 fn p2_setup() -> (Prepared, Vec<f64>) {
-    let mut b = Atom::builder();
-    let g = b.level("g", 0.0);
-    let r = b.level("r", 2.0 * PI * 6.834e9);
-    let x = b.level("x", 2.0 * PI * 384.23e12);
-    let z = C64::new(0.0, 0.0);
-    let one = C64::new(fieldbook_runtime::atom::E_A0, 0.0);
-    let tp = b.transition_with_dipole(g, x, [z, z, one]);
-    let ts = b.transition_with_dipole(r, x, [one, z, z]);
-    let atom = b.build().unwrap();
-    let omega = 2.0 * PI * 5e6;
-    let pump = Field::new(
-        "pump",
-        Carrier::Detuning {
-            transition: tp,
-            detuning: 0.0,
-        },
-        Strength::Rabi {
-            transition: tp,
-            rabi: omega,
-        },
-    )
-    .with_polarization(Polarization::sigma_plus());
-    let stokes = Field::new(
-        "stokes",
-        Carrier::Detuning {
-            transition: ts,
-            detuning: 0.0,
-        },
-        Strength::Rabi {
-            transition: ts,
-            rabi: omega,
-        },
-    )
-    .with_polarization(Polarization::sigma_minus());
-    let sigma: f64 = 1e-6;
-    let gauss = |centre: f64| {
-        Envelope::new(
-            Shape::custom(move |t: f64| (-(t - centre).powi(2) / (2.0 * sigma * sigma)).exp()),
-            10e-6,
-        )
-        .unwrap()
-    };
-    let seq = Sequence::builder()
-        .at(0.0, Pulse::new(0, gauss(5.5e-6)))
-        .at(0.0, Pulse::new(1, gauss(4.5e-6)))
-        .build()
-        .unwrap();
-    let mut p = Problem::new(
-        atom.clone(),
-        vec![pump, stokes],
-        seq,
-        State::level(&atom, g).unwrap(),
-        vec![Observable::Population(r)],
-    );
+    let mut p = common::stirap_lambda(2.0 * PI * 5e6, 1e-6, 5.5e-6, 4.5e-6, 10e-6);
     p.tolerance = Tolerance {
         rtol: 1e-8,
         atol: 1e-10,

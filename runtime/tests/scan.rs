@@ -7,57 +7,11 @@ mod common;
 use common::*;
 use fieldbook_runtime::prelude::*;
 
-/// A STIRAP Λ system (Vitanov et al., Rev. Mod. Phys. 89, 015006 (2017)) with Gaussian pulses,
-/// the Stokes field retuned across the two-photon resonance.
+/// The shared STIRAP Λ model (counter-intuitive order), observing P_r and the g–r Bloch vector,
+/// with the Stokes field retuned across the two-photon resonance.
 fn stirap() -> (Prepared, Vec<f64>) {
-    let mut b = Atom::builder();
-    let g = b.level("g", 0.0);
-    let r = b.level("r", TAU * 6.834e9);
-    let x = b.level("x", TAU * 384.23e12);
-    let tp = b.transition_with_dipole(g, x, sigma_plus_dipole());
-    let ts = b.transition_with_dipole(r, x, sigma_minus_dipole());
-    let atom = b.build().unwrap();
-    let omega = TAU * 5e6;
-    let pump = Field::new(
-        "pump",
-        Carrier::Detuning {
-            transition: tp,
-            detuning: 0.0,
-        },
-        Strength::Rabi {
-            transition: tp,
-            rabi: omega,
-        },
-    )
-    .with_polarization(Polarization::sigma_plus());
-    let stokes = Field::new(
-        "stokes",
-        Carrier::Detuning {
-            transition: ts,
-            detuning: 0.0,
-        },
-        Strength::Rabi {
-            transition: ts,
-            rabi: omega,
-        },
-    )
-    .with_polarization(Polarization::sigma_minus());
-    let gauss = Envelope::new(Shape::Gaussian { sigma: 1e-6 }, 9e-6).unwrap();
-    let seq = Sequence::builder()
-        .at(0.0, Pulse::new(1, gauss.clone()))
-        .at(1e-6, Pulse::new(0, gauss))
-        .build()
-        .unwrap();
-    let mut p = Problem::new(
-        atom.clone(),
-        vec![pump, stokes],
-        seq,
-        State::level(&atom, g).unwrap(),
-        vec![
-            Observable::Population(r),
-            Observable::Bloch { lower: g, upper: r },
-        ],
-    );
+    let mut p = stirap_lambda(TAU * 5e6, 1e-6, 5.5e-6, 4.5e-6, 10e-6);
+    p.observables.push(Observable::Bloch { lower: 0, upper: 1 });
     p.tolerance = Tolerance {
         rtol: 1e-10,
         atol: 1e-12,

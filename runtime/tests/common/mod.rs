@@ -509,3 +509,56 @@ pub fn catalogue() -> Vec<Model> {
 pub fn rosen_zener(o0: f64, w: f64, delta: f64) -> f64 {
     (0.5 * PI * o0 * w).sin().powi(2) / (0.5 * PI * delta * w).cosh().powi(2)
 }
+
+/// A STIRAP Λ system (Vitanov et al., Rev. Mod. Phys. 89, 015006 (2017)): g → x by a σ⁺ pump,
+/// r → x by a σ⁻ Stokes beam (each drives only its own leg), both with Rabi frequency `omega`
+/// and Gaussian envelopes of rms width `sigma` peaking at `t_pump` and `t_stokes` within a window
+/// [0, `t_end`] (untruncated inside it, as a hand-written reference would have them). Observes
+/// P_r. The Stokes field is field 1: retuning it by −δ sets the two-photon detuning δ
+/// (H_rr = −δ).
+pub fn stirap_lambda(omega: f64, sigma: f64, t_pump: f64, t_stokes: f64, t_end: f64) -> Problem {
+    let mut b = Atom::builder();
+    let g = b.level("g", 0.0);
+    let r = b.level("r", TAU * 6.834e9);
+    let x = b.level("x", TAU * 384.23e12);
+    let tp = b.transition_with_dipole(g, x, sigma_plus_dipole());
+    let ts = b.transition_with_dipole(r, x, sigma_minus_dipole());
+    let atom = b.build().expect("Λ atom");
+    let beam = |name: &str, tr, pol| {
+        Field::new(
+            name,
+            Carrier::Detuning {
+                transition: tr,
+                detuning: 0.0,
+            },
+            Strength::Rabi {
+                transition: tr,
+                rabi: omega,
+            },
+        )
+        .with_polarization(pol)
+    };
+    let gauss = |centre: f64| {
+        Envelope::new(
+            Shape::custom(move |t: f64| (-(t - centre).powi(2) / (2.0 * sigma * sigma)).exp()),
+            t_end,
+        )
+        .expect("envelope")
+    };
+    let seq = Sequence::builder()
+        .at(0.0, Pulse::new(0, gauss(t_pump)))
+        .at(0.0, Pulse::new(1, gauss(t_stokes)))
+        .build()
+        .expect("sequence");
+    let initial = State::level(&atom, g).expect("state");
+    Problem::new(
+        atom,
+        vec![
+            beam("pump", tp, Polarization::sigma_plus()),
+            beam("stokes", ts, Polarization::sigma_minus()),
+        ],
+        seq,
+        initial,
+        vec![Observable::Population(r)],
+    )
+}
