@@ -362,6 +362,22 @@ fn combine(out: &mut [C64], base: &[C64], k: &[C64], weights: &[f64], h: f64) {
     }
 }
 
+/// `out = h Σ_j w_j k_j`, written by the first stage's pass rather than after zeroing `out`.
+#[inline(always)]
+fn weighted_sum(out: &mut [C64], k: &[C64], weights: &[f64], h: f64) {
+    let n = out.len();
+    match weights.iter().position(|&w| w != 0.0) {
+        Some(j) => {
+            let hw = h * weights[j];
+            for (o, &x) in out.iter_mut().zip(&k[j * n..(j + 1) * n]) {
+                *o = x * hw;
+            }
+            accumulate(out, &k[(j + 1) * n..], &weights[j + 1..], h);
+        }
+        None => out.fill(C64::new(0.0, 0.0)),
+    }
+}
+
 /// `out += h Σ_j w_j k_j`, two stages per pass over the components so each output is loaded and
 /// stored half as often; zero weights are skipped since the DOP853 rows are sparse.
 #[inline(always)]
@@ -412,7 +428,6 @@ fn error_norm(
     e2: &mut [C64],
     sums: &mut [(f64, f64)],
 ) -> f64 {
-    e1.fill(C64::new(0.0, 0.0));
     let blocks = cfg.blocks.max(1);
     let nb = (y.len() / blocks) as f64;
     // Per-system sums; systems are interleaved (component i belongs to system i mod blocks).
@@ -424,7 +439,7 @@ fn error_norm(
     };
     match tab.error {
         ErrorEstimate::Embedded { e } => {
-            accumulate(e1, k, e, h);
+            weighted_sum(e1, k, e, h);
             for (i, ((&err, &a), &b)) in e1.iter().zip(y).zip(y_new).enumerate() {
                 sums[i % blocks].0 += err.norm_sqr() / scale(cfg, a, b).powi(2);
             }
@@ -432,9 +447,8 @@ fn error_norm(
         }
         ErrorEstimate::Blended { e5, e3 } => {
             // As scipy's DOP853._estimate_error_norm and Hairer's DOP853, per system.
-            e2.fill(C64::new(0.0, 0.0));
-            accumulate(e1, k, e5, 1.0);
-            accumulate(e2, k, e3, 1.0);
+            weighted_sum(e1, k, e5, 1.0);
+            weighted_sum(e2, k, e3, 1.0);
             for (i, (((&r5, &r3), &a), &b)) in
                 e1.iter().zip(e2.iter()).zip(y).zip(y_new).enumerate()
             {
