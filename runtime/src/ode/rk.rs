@@ -378,29 +378,43 @@ fn weighted_sum(out: &mut [C64], k: &[C64], weights: &[f64], h: f64) {
     }
 }
 
-/// `out += h Σ_j w_j k_j`, two stages per pass over the components so each output is loaded and
-/// stored half as often; zero weights are skipped since the DOP853 rows are sparse.
+/// `out += h Σ_j w_j k_j`, up to four stages per pass over the components so each output is
+/// loaded and stored once per four stages; zero weights are skipped since the DOP853 rows are
+/// sparse.
 #[inline(always)]
 fn accumulate(out: &mut [C64], k: &[C64], weights: &[f64], h: f64) {
     let n = out.len();
-    let mut pending: Option<(&[C64], f64)> = None;
+    // Gather the non-zero stages, then add them four, two or one at a time.
+    let mut rows: [&[C64]; MAX_STAGES] = [&[]; MAX_STAGES];
+    let mut hw = [0.0f64; MAX_STAGES];
+    let mut m = 0;
     for (kj, &w) in k.chunks_exact(n).zip(weights) {
-        if w == 0.0 {
-            continue;
-        }
-        match pending.take() {
-            None => pending = Some((kj, h * w)),
-            Some((ki, hi)) => {
-                let hw = h * w;
-                for ((o, &x), &y) in out.iter_mut().zip(ki).zip(kj) {
-                    *o += x * hi + y * hw;
-                }
-            }
+        if w != 0.0 {
+            rows[m] = kj;
+            hw[m] = h * w;
+            m += 1;
         }
     }
-    if let Some((ki, hi)) = pending {
-        for (o, &x) in out.iter_mut().zip(ki) {
-            *o += x * hi;
+    let mut s = 0;
+    while s + 4 <= m {
+        let (a, b, c, d) = (rows[s], rows[s + 1], rows[s + 2], rows[s + 3]);
+        let (wa, wb, wc, wd) = (hw[s], hw[s + 1], hw[s + 2], hw[s + 3]);
+        for ((((o, &xa), &xb), &xc), &xd) in out.iter_mut().zip(a).zip(b).zip(c).zip(d) {
+            *o += xa * wa + xb * wb + xc * wc + xd * wd;
+        }
+        s += 4;
+    }
+    if s + 2 <= m {
+        let (a, b, wa, wb) = (rows[s], rows[s + 1], hw[s], hw[s + 1]);
+        for ((o, &xa), &xb) in out.iter_mut().zip(a).zip(b) {
+            *o += xa * wa + xb * wb;
+        }
+        s += 2;
+    }
+    if s < m {
+        let (a, wa) = (rows[s], hw[s]);
+        for (o, &xa) in out.iter_mut().zip(a) {
+            *o += xa * wa;
         }
     }
 }
