@@ -127,27 +127,15 @@ fn compare<R>(
     )
 }
 
+/// The catalogue's two-level atom (g at 0, e at 2π × 6.8 GHz) with a resonant drive of Rabi
+/// frequency `rabi`, decaying at Γ when given.
 fn two_level(rabi: f64, decay: Option<f64>) -> (Atom, Field) {
-    let mut b = Atom::builder();
-    let g = b.level("g", 0.0);
-    let e = b.level("e", 2.0 * PI * 6.8e9);
-    let tr = b.transition(g, e);
-    if let Some(gamma) = decay {
-        b.decay(e, g, gamma);
-    }
-    let atom = b.build().expect("two-level atom");
-    let field = Field::new(
-        "drive",
-        Carrier::Detuning {
-            transition: tr,
-            detuning: 0.0,
-        },
-        Strength::Rabi {
-            transition: tr,
-            rabi,
-        },
-    );
-    (atom, field)
+    let w0 = 2.0 * PI * 6.8e9;
+    let (atom, _, _, tr) = match decay {
+        Some(gamma) => common::decaying_two_level(w0, gamma),
+        None => common::two_level(w0),
+    };
+    (atom, common::drive(tr, 0.0, rabi))
 }
 
 fn linspace(a: f64, b: f64, n: usize) -> Vec<f64> {
