@@ -1,144 +1,225 @@
-//! The `fieldbook` command line. For now it runs a built-in demonstration scenario through the
-//! runtime; run-files arrive with the format.
+//! The `fieldbook` command line: `check` and `run` run-files. Exit codes are mapped here, in
+//! one place: 0 ok, 1 a check failed, 2 input error, 3 runtime failure (the largest applies when
+//! several files are given).
 
-use std::f64::consts::PI;
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
+use std::sync::Mutex;
+use std::time::Instant;
 
-use fieldbook_runtime::prelude::*;
+use fieldbook::kernel::cache::Cache;
+use fieldbook::kernel::session::{self, RunOptions};
+use fieldbook::notebook::{self, diag::Severity};
+use fieldbook::summary;
+
+/// Exit codes.
+const OK: u8 = 0;
+const CHECK_FAILED: u8 = 1;
+const INPUT_ERROR: u8 = 2;
+const RUNTIME_FAILURE: u8 = 3;
+
+const USAGE: &str =
+    "usage: fieldbook check FILE…                  validate run-files without simulating
+       fieldbook run FILE… [OPTIONS]          run them and print results and checks
+options of run and check:
+       --set NAME=EXPR      override a parameter (repeatable), e.g. --set rabi=\"2π × 300 kHz\"
+options of run:
+       --no-cache           recompute every evolve block
+       --cache DIR          keep cached results in DIR (default: .fieldbook-cache beside each file)
+       fieldbook --version";
+
+struct Args {
+    command: String,
+    files: Vec<PathBuf>,
+    overrides: Vec<(String, String)>,
+    cache: Option<Option<PathBuf>>,
+}
+
+fn parse_args(args: Vec<String>) -> Result<Args, String> {
+    let mut it = args.into_iter();
+    let command = it.next().ok_or("no command given")?;
+    let mut out = Args {
+        command,
+        files: vec![],
+        overrides: vec![],
+        cache: None,
+    };
+    while let Some(a) = it.next() {
+        if let Some(rest) = a.strip_prefix("--set") {
+            let kv = match rest.strip_prefix('=') {
+                Some(kv) => kv.to_string(),
+                None if rest.is_empty() => it.next().ok_or("--set needs NAME=EXPR")?,
+                None => return Err(format!("unknown option `{a}`")),
+            };
+            let (k, v) = kv
+                .split_once('=')
+                .ok_or_else(|| format!("--set {kv}: expected NAME=EXPR"))?;
+            out.overrides
+                .push((k.trim().to_string(), v.trim().to_string()));
+        } else if a == "--no-cache" {
+            out.cache = Some(None);
+        } else if a == "--cache" {
+            out.cache = Some(Some(it.next().ok_or("--cache needs a folder")?.into()));
+        } else if a.starts_with("--") {
+            return Err(format!("unknown option `{a}`"));
+        } else {
+            out.files.push(a.into());
+        }
+    }
+    if out.files.is_empty() {
+        return Err(format!("`{}` needs at least one run-file", out.command));
+    }
+    Ok(out)
+}
 
 fn main() -> ExitCode {
-    let args: Vec<String> = std::env::args().skip(1).collect();
-    match args.first().map(String::as_str) {
-        Some("demo") => match demo() {
-            Ok(()) => ExitCode::SUCCESS,
-            Err(e) => {
-                eprintln!("error: {e}");
-                ExitCode::from(3)
-            }
-        },
+    let raw: Vec<String> = std::env::args().skip(1).collect();
+    match raw.first().map(String::as_str) {
         Some("--version") => {
             println!("fieldbook {}", env!("CARGO_PKG_VERSION"));
-            ExitCode::SUCCESS
+            return ExitCode::SUCCESS;
         }
-        _ => {
-            eprintln!(
-                "usage: fieldbook demo      run the built-in Rabi-chevron and STIRAP demonstration"
-            );
-            eprintln!("       fieldbook --version");
-            ExitCode::from(2)
+        Some("--help") | Some("-h") | Some("help") => {
+            println!("{USAGE}");
+            return ExitCode::SUCCESS;
         }
+        Some("check") | Some("run") => {}
+        other => {
+            if let Some(c) = other {
+                eprintln!("error: unknown command `{c}`");
+            }
+            eprintln!("{USAGE}");
+            return ExitCode::from(INPUT_ERROR);
+        }
+    }
+    let args = match parse_args(raw) {
+        Ok(a) => a,
+        Err(e) => {
+            eprintln!("error: {e}\n{USAGE}");
+            return ExitCode::from(INPUT_ERROR);
+        }
+    };
+    let code = args
+        .files
+        .iter()
+        .map(|f| one_file(&args, f))
+        .max()
+        .unwrap_or(OK);
+    ExitCode::from(code)
+}
+
+fn one_file(args: &Args, path: &Path) -> u8 {
+    let name = path.display().to_string();
+    let bytes = match std::fs::read(path) {
+        Ok(b) => b,
+        Err(e) => {
+            eprintln!("error: cannot read {name}: {e}");
+            return INPUT_ERROR;
+        }
+    };
+    let t0 = Instant::now();
+    let source = match notebook::load(&name, &bytes) {
+        Ok(s) => s,
+        Err(bad) => {
+            let (src, d) = *bad;
+            eprint!("{}", d.render(&src));
+            return INPUT_ERROR;
+        }
+    };
+    let (doc, mut diags) = notebook::parse(source);
+    let outcome = session::check(&doc, &args.overrides);
+    diags.extend(outcome.diags);
+    diags.sort_by_key(|d| d.span.start);
+    for d in &diags {
+        eprint!("{}", d.render(&doc.source));
+    }
+    for c in &outcome.cli {
+        eprintln!("error: {c}");
+    }
+    let errors = diags
+        .iter()
+        .filter(|d| d.severity == Severity::Error)
+        .count()
+        + outcome.cli.len();
+    let Some(checked) = outcome.checked.filter(|_| errors == 0) else {
+        eprintln!("{name}: {errors} error(s); nothing was run");
+        return INPUT_ERROR;
+    };
+    if args.command == "check" {
+        let warnings = diags.len();
+        println!(
+            "{name}: ok ({} blocks, {warnings} warning(s), {:.1} ms)",
+            doc.blocks().count(),
+            t0.elapsed().as_secs_f64() * 1e3
+        );
+        return OK;
+    }
+    let cache = match &args.cache {
+        Some(None) => None,
+        Some(Some(dir)) => Some(Cache::new(dir)),
+        None => Some(Cache::beside(path)),
+    };
+    let bar = Progress::new();
+    let progress = |block: &str, done: usize, total: usize| bar.update(block, done, total);
+    let opts = RunOptions {
+        cache: cache.as_ref(),
+        progress: Some(&progress),
+    };
+    let result = session::run(&checked, &opts);
+    bar.finish();
+    print!(
+        "{}",
+        summary::text(&doc, &result, t0.elapsed().as_secs_f64())
+    );
+    for e in &result.errors {
+        let d = notebook::diag::Diagnostic::error(e.span.clone(), e.message.clone());
+        eprint!("{}", d.render(&doc.source));
+    }
+    if !result.errors.is_empty() {
+        RUNTIME_FAILURE
+    } else if result.failed_checks() > 0 {
+        CHECK_FAILED
+    } else {
+        OK
     }
 }
 
-/// The microwave clock pair of the fictional Larkspur Hollow trap: a detuned π pulse, then
-/// STIRAP across its Λ system.
-fn demo() -> Result<(), Error> {
-    let mut b = Atom::builder();
-    let g = b.level("g", 0.0);
-    let e = b.level("e", 2.0 * PI * 6.834e9);
-    let tr = b.transition(g, e);
-    let atom = b.build()?;
-    let rabi = 2.0 * PI * 25e3;
-    println!(
-        "Rabi chevron, Ω = 2π × 25 kHz, π pulse of {:.2} µs",
-        0.5e6 / 25e3
-    );
-    println!("{:>14} {:>12}", "Δ/2π (kHz)", "P(e)");
-    for k in -4..=4 {
-        let delta = 2.0 * PI * 10e3 * k as f64;
-        let field = Field::new(
-            "mw",
-            Carrier::Detuning {
-                transition: tr,
-                detuning: delta,
-            },
-            Strength::Rabi {
-                transition: tr,
-                rabi,
-            },
-        );
-        let seq = Sequence::builder()
-            .then(Pulse::new(0, Envelope::new(Shape::Square, PI / rabi)?))
-            .build()?;
-        let sol = solve(&Problem::new(
-            atom.clone(),
-            vec![field],
-            seq,
-            State::level(&atom, g)?,
-            vec![Observable::Population(e)],
-        ))?;
-        println!(
-            "{:>14.1} {:>12.6}",
-            delta / (2.0 * PI * 1e3),
-            sol.final_values()[0]
-        );
+/// A progress bar on stderr for sweeps that run longer than a second, only on a terminal.
+struct Progress {
+    start: Instant,
+    on: bool,
+    shown: Mutex<bool>,
+}
+
+impl Progress {
+    fn new() -> Self {
+        Self {
+            start: Instant::now(),
+            on: std::io::stderr().is_terminal(),
+            shown: Mutex::new(false),
+        }
     }
 
-    let mut b = Atom::builder();
-    let g = b.level("g", 0.0);
-    let r = b.level("r", 2.0 * PI * 6.834e9);
-    let x = b.level("x", 2.0 * PI * 384.23e12);
-    // The pump drives g → x with σ⁺ light and the Stokes beam r → x with σ⁻ light, so each beam
-    // couples only its own leg of the Λ.
-    let (z, d) = (
-        C64::new(0.0, 0.0),
-        C64::new(fieldbook_runtime::atom::E_A0, 0.0),
-    );
-    let p_tr = b.transition_with_dipole(g, x, [z, z, d]);
-    let s_tr = b.transition_with_dipole(r, x, [d, z, z]);
-    let atom = b.build()?;
-    let omega = 2.0 * PI * 5e6;
-    let sigma = 1e-6;
-    let pump = Field::new(
-        "pump",
-        Carrier::Detuning {
-            transition: p_tr,
-            detuning: 0.0,
-        },
-        Strength::Rabi {
-            transition: p_tr,
-            rabi: omega,
-        },
-    )
-    .with_polarization(Polarization::sigma_plus());
-    let stokes = Field::new(
-        "stokes",
-        Carrier::Detuning {
-            transition: s_tr,
-            detuning: 0.0,
-        },
-        Strength::Rabi {
-            transition: s_tr,
-            rabi: omega,
-        },
-    )
-    .with_polarization(Polarization::sigma_minus());
-    let gauss = Envelope::new(Shape::Gaussian { sigma }, 10e-6)?;
-    // Counter-intuitive order: the Stokes pulse peaks 1 µs before the pump.
-    let seq = Sequence::builder()
-        .at(0.0, Pulse::new(1, gauss.clone()))
-        .at(1e-6, Pulse::new(0, gauss))
-        .build()?;
-    let sol = solve(&Problem::new(
-        atom.clone(),
-        vec![pump, stokes],
-        seq,
-        State::level(&atom, g)?,
-        vec![Observable::Population(r), Observable::Population(x)],
-    ))?;
-    let v = sol.final_values();
-    println!(
-        "STIRAP g → r: P(r) = {:.6}, P(x) = {:.2e} ({}; {} steps, norm drift {:.1e})",
-        v[0], v[1], sol.diagnostics.method, sol.diagnostics.steps, sol.diagnostics.norm_drift
-    );
-    for note in &sol.frame.notes {
-        println!(
-            "  frame: {} on {}: {:?} (rotation 2π × {:.4e} Hz)",
-            note.field,
-            note.transition,
-            note.fate,
-            note.rotation / (2.0 * PI)
+    fn update(&self, block: &str, done: usize, total: usize) {
+        if !self.on || self.start.elapsed().as_secs_f64() < 1.0 || total == 0 {
+            return;
+        }
+        let width = 30;
+        let filled = done * width / total;
+        eprint!(
+            "\r  {block} [{}{}] {done}/{total}",
+            "#".repeat(filled),
+            ".".repeat(width - filled)
         );
+        if let Ok(mut s) = self.shown.lock() {
+            *s = true;
+        }
     }
-    Ok(())
+
+    fn finish(&self) {
+        if self.shown.lock().map(|s| *s).unwrap_or(false) {
+            eprintln!();
+        }
+    }
 }
