@@ -198,3 +198,33 @@ fn a_prose_edit_recomputes_nothing_and_a_block_edit_only_its_dependents() {
         "{t}"
     );
 }
+
+#[test]
+fn a_cycle_frequency_without_2pi_warns_with_both_readings() {
+    let dir = temp_dir("hz");
+    let f = dir.join("hz.md");
+    let src = std::fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("notebooks-spec/examples/rabi-chevron.md"),
+    )
+    .unwrap();
+    std::fs::write(
+        &f,
+        src.replace("rabi  = \"2π × 25 kHz\"", "rabi  = \"25 kHz\""),
+    )
+    .unwrap();
+    let o = bin().arg("check").arg(&f).output().unwrap();
+    let t = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{t}");
+    assert!(
+        t.contains("warning: the Rabi frequency: `25 kHz` is read as 2.5×10⁴ rad/s"),
+        "{t}"
+    );
+    assert!(t.contains("write `2π × 25 kHz`"), "{t}");
+    // Zero and properly written values do not warn.
+    let o = bin()
+        .arg("check")
+        .arg(Path::new(env!("CARGO_MANIFEST_DIR")).join("notebooks-spec/examples/rabi-chevron.md"))
+        .output()
+        .unwrap();
+    assert!(!text(&o).contains("warning:"), "{}", text(&o));
+}

@@ -43,7 +43,10 @@ impl Values {
     /// Whether `ex` refers to a parameter that could not be evaluated (so its own failure
     /// would only repeat an earlier diagnostic).
     pub fn poisoned(&self, ex: &Ex) -> bool {
-        ex.expr.lookups().iter().any(|(n, _)| self.failed.contains(n))
+        ex.expr
+            .lookups()
+            .iter()
+            .any(|(n, _)| self.failed.contains(n))
             || ex
                 .expr
                 .references()
@@ -129,7 +132,14 @@ impl Builder<'_> {
             }
         };
         if let Err(e) = expr::expect_dim(&q, dim, what, 0..ex.text().len()) {
-            self.diags.push(ex.diag(&e));
+            let msg = format!(
+                "{what} `{}` is {}; {} is expected",
+                ex.text(),
+                q.dim.describe(),
+                dim.describe()
+            );
+            self.diags
+                .push(Diagnostic::error(ex.span.clone(), msg).with_hint_opt(e.hint));
             return None;
         }
         if self.warn
@@ -359,57 +369,72 @@ impl Builder<'_> {
             ));
             return None;
         };
+        // Every value is evaluated before any failure returns, so that all of a light's problems
+        // are reported at once.
         let carrier = match (&light.detuning, &light.frequency) {
-            (_, Some(f)) => {
-                Carrier::Frequency(self.positive(f, Dim::FREQUENCY, "the light's frequency")?)
-            }
-            (Some(d), None) => Carrier::Detuning {
-                transition: tr,
-                detuning: self.quantity(d, Dim::FREQUENCY, "the detuning")?,
-            },
-            (None, None) => Carrier::Detuning {
+            (_, Some(f)) => self
+                .positive(f, Dim::FREQUENCY, "the light's frequency")
+                .map(Carrier::Frequency),
+            (Some(d), None) => self
+                .quantity(d, Dim::FREQUENCY, "the detuning")
+                .map(|detuning| Carrier::Detuning {
+                    transition: tr,
+                    detuning,
+                }),
+            (None, None) => Some(Carrier::Detuning {
                 transition: tr,
                 detuning: 0.0,
-            },
+            }),
         };
         let (kind, ex) = &light.strength;
         let strength = match kind {
-            StrengthKind::Rabi => Strength::Rabi {
-                transition: tr,
-                rabi: self.non_negative(ex, Dim::FREQUENCY, "the Rabi frequency")?,
-            },
-            StrengthKind::Field => Strength::ElectricField(self.non_negative(
-                ex,
-                Dim::ELECTRIC_FIELD,
-                "the field amplitude",
-            )?),
-            StrengthKind::Intensity => {
-                Strength::Intensity(self.non_negative(ex, Dim::INTENSITY, "the intensity")?)
-            }
+            StrengthKind::Rabi => self
+                .non_negative(ex, Dim::FREQUENCY, "the Rabi frequency")
+                .map(|rabi| Strength::Rabi {
+                    transition: tr,
+                    rabi,
+                }),
+            StrengthKind::Field => self
+                .non_negative(ex, Dim::ELECTRIC_FIELD, "the field amplitude")
+                .map(Strength::ElectricField),
+            StrengthKind::Intensity => self
+                .non_negative(ex, Dim::INTENSITY, "the intensity")
+                .map(Strength::Intensity),
+        };
+        let phase = light
+            .phase
+            .as_ref()
+            .map(|p| self.quantity(p, Dim::DIMENSIONLESS, "the phase"));
+        let linewidth = light
+            .linewidth
+            .as_ref()
+            .map(|w| self.non_negative(w, Dim::FREQUENCY, "the linewidth"));
+        let chirp = match &light.chirp {
+            None => None,
+            Some(ChirpDef::Rate(r)) => Some(
+                self.quantity(r, Dim::FREQUENCY_RATE, "the chirp rate")
+                    .map(|rate| Chirp::Linear { start: 0.0, rate }),
+            ),
+            Some(ChirpDef::Formula(f)) => Some(
+                self.compiled(f, Dim::FREQUENCY, "the chirp formula")
+                    .map(|c| Chirp::Custom {
+                        detuning: c,
+                        phase: None,
+                    }),
+            ),
         };
         let mut pol = [C64::new(0.0, 0.0); 3];
         pol[(light.polarization + 1) as usize] = C64::new(1.0, 0.0);
         let mut field =
-            Field::new(name, carrier, strength).with_polarization(Polarization::new(pol).ok()?);
-        if let Some(p) = &light.phase {
-            field = field.with_phase(self.quantity(p, Dim::DIMENSIONLESS, "the phase")?);
+            Field::new(name, carrier?, strength?).with_polarization(Polarization::new(pol).ok()?);
+        if let Some(p) = phase {
+            field = field.with_phase(p?);
         }
-        if let Some(w) = &light.linewidth {
-            field = field.with_linewidth(self.non_negative(w, Dim::FREQUENCY, "the linewidth")?);
+        if let Some(w) = linewidth {
+            field = field.with_linewidth(w?);
         }
-        match &light.chirp {
-            None => {}
-            Some(ChirpDef::Rate(r)) => {
-                let rate = self.quantity(r, Dim::FREQUENCY_RATE, "the chirp rate")?;
-                field = field.with_chirp(Chirp::Linear { start: 0.0, rate });
-            }
-            Some(ChirpDef::Formula(f)) => {
-                let c = self.compiled(f, Dim::FREQUENCY, "the chirp formula")?;
-                field = field.with_chirp(Chirp::Custom {
-                    detuning: c,
-                    phase: None,
-                });
-            }
+        if let Some(c) = chirp {
+            field = field.with_chirp(c?);
         }
         Some(field)
     }
@@ -429,7 +454,8 @@ impl Builder<'_> {
                 self.diags.push(Diagnostic::error(
                     ex.span.clone(),
                     format!(
-                        "{what} has the dimension of {}; {} is expected",
+                        "{what} `{}` is {}; {} is expected",
+                        ex.text(),
                         c.dim().describe(),
                         dim.describe()
                     ),
@@ -739,23 +765,25 @@ pub fn problem(
     let drives: Vec<&LightBlock> = inputs.lights.iter().map(|(_, l)| *l).collect();
     let (atom_name, atom_block, atom_span) = &inputs.atom;
     let atom = b.atom(atom_name, atom_block, atom_span, &drives)?;
-    let fields: Option<Vec<Field>> = inputs
+    // Each part is built before any failure returns, so that all problems are reported at once.
+    let fields: Vec<Option<Field>> = inputs
         .lights
         .iter()
         .map(|(n, l)| b.field(n, l, &atom, atom_name))
         .collect();
-    let fields = fields?;
-    let observables = b.observables(&ev.observe, &atom, atom_name)?;
+    let observables = b.observables(&ev.observe, &atom, atom_name);
     let cutoff = match &ev.cutoff {
-        Some(c) => b.positive(c, Dim::FREQUENCY, "the cutoff")?,
-        None => f64::INFINITY,
+        Some(c) => b.positive(c, Dim::FREQUENCY, "the cutoff"),
+        None => Some(f64::INFINITY),
     };
+    let fields: Option<Vec<Field>> = fields.into_iter().collect();
+    let (fields, observables, cutoff) = (fields, observables, cutoff);
     if ev.steady {
         return Some(Built::Steady(SteadyProblem {
             atom: atom.atom,
-            fields,
-            cutoff,
-            observables,
+            fields: fields?,
+            cutoff: cutoff?,
+            observables: observables?,
         }));
     }
     let index: HashMap<String, usize> = inputs
@@ -764,8 +792,10 @@ pub fn problem(
         .enumerate()
         .map(|(i, (n, _))| (n.to_string(), i))
         .collect();
-    let sequence = b.sequence(inputs.sequence?, &index)?;
-    let initial = b.start(&ev.start, &atom, atom_name, &inputs.span)?;
+    let sequence = inputs.sequence.and_then(|s| b.sequence(s, &index));
+    let initial = b.start(&ev.start, &atom, atom_name, &inputs.span);
+    let (fields, observables, cutoff, sequence, initial) =
+        (fields?, observables?, cutoff?, sequence?, initial?);
     let mut p = Problem::new(atom.atom, fields, sequence, initial, observables);
     p.frame = if ev.exact {
         Frame::exact()

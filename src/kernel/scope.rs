@@ -199,7 +199,14 @@ pub fn resolve(
             continue;
         };
         for name in &p.broken {
-            define(&mut scope, &mut diags, &name.name, &name.span, "parameter", order);
+            define(
+                &mut scope,
+                &mut diags,
+                &name.name,
+                &name.span,
+                "parameter",
+                order,
+            );
         }
         let mut local = Vec::new();
         for (name, ex) in &p.entries {
@@ -243,7 +250,10 @@ pub fn resolve(
                 names.iter().any(|m| m == n)
                     || scope.names.get(n).is_some_and(|d| d.what == "parameter")
             };
-            p.deps = param_refs(&p.ex, is_param).into_iter().map(|(n, _)| n).collect();
+            p.deps = param_refs(&p.ex, is_param)
+                .into_iter()
+                .map(|(n, _)| n)
+                .collect();
         }
         order_block(&mut scope, local, order, &mut diags, &mut cli);
     }

@@ -305,6 +305,8 @@ pub fn check<'d>(doc: &'d Document, overrides: &[(String, String)]) -> CheckOutc
             .iter()
             .any(|b| b.block.is_none() && crate::notebook::schema::kind(&b.raw.kind).is_some());
     diags.sort_by_key(|d| d.span.start);
+    // A block built twice (on its own and inside an evolve) reports a problem once.
+    diags.dedup_by(|a, b| a.span == b.span && a.message == b.message);
     CheckOutcome {
         checked: (!failed).then_some(c),
         diags,
@@ -460,7 +462,7 @@ fn check_evolve(
             format!("the scenario of `{name}` could not be built"),
         ));
     }
-    built.as_ref()?;
+    let built_ok = built.is_some();
     if e.steady && e.samples.is_some() {
         diags.push(
             Diagnostic::error(
@@ -702,7 +704,7 @@ fn check_evolve(
             }
         }
     }
-    if !ok {
+    if !ok || !built_ok {
         return None;
     }
     let key = super::cache::key(
