@@ -228,3 +228,80 @@ fn a_cycle_frequency_without_2pi_warns_with_both_readings() {
         .unwrap();
     assert!(!text(&o).contains("warning:"), "{}", text(&o));
 }
+
+/// Formulas in `t`: a Gaussian written as an envelope formula with area π inverts the atom on
+/// resonance (area theorem, McCall & Hahn, Phys. Rev. 183, 457 (1969)), and a linear chirp
+/// written as a formula gives Zener's transfer 1 − exp(−πΩ²/2α) like the built-in linear chirp
+/// (Zener, Proc. R. Soc. A 137, 696 (1932); tolerance 5e-3 for the finite sweep).
+#[test]
+fn formulas_in_t_drive_envelopes_and_chirps() {
+    let dir = temp_dir("formula");
+    let f = dir.join("formula.md");
+    std::fs::write(
+        &f,
+        r#"# Formula envelope and chirp
+
+```params
+rabi  = "2π × 50 kHz"
+sigma = "2 µs"
+rate  = "2π × 10 kHz / 1 µs"
+span  = "2π × 16 MHz"
+```
+
+```atom a
+[levels]
+g = "0 Hz"
+e = "2π × 1 GHz"
+```
+
+```light drive
+drives = "g -> e"
+rabi   = "rabi"
+```
+
+```light sweep
+drives   = "g -> e"
+detuning = "-span / 2"
+rabi     = "rabi"
+chirp    = { formula = "rate * t" }
+```
+
+```sequence gauss
+[[step]]
+pulse    = "drive"
+shape    = { formula = "exp(-(t - 4 sigma)^2 / (2 sigma^2))" }
+duration = "8 sigma"
+area     = "π"
+```
+
+```sequence chirped
+[[step]]
+pulse    = "sweep"
+duration = "span / rate"
+```
+
+```evolve pi
+sequence = "gauss"
+observe  = ["population(e)"]
+rtol     = 1e-10
+atol     = 1e-12
+```
+
+```evolve lz
+sequence = "chirped"
+observe  = ["population(e)"]
+rtol     = 1e-9
+atol     = 1e-11
+```
+
+```check
+"pi.final.population(e)" = { near = 1, within = 1e-6 }
+"lz.final.population(e)" = { near = "1 - exp(-π rabi^2 / (2 rate))", within = 5e-3 }
+```
+"#,
+    )
+    .unwrap();
+    let o = bin().args(["run", "--no-cache"]).arg(&f).output().unwrap();
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    assert!(text(&o).contains("all 2 check(s) held"), "{}", text(&o));
+}
