@@ -1247,10 +1247,16 @@ fn point_values(
     }
 }
 
+/// What a sweep keeps of each point: final values and two accuracy figures, so that a sweep of
+/// a million points stays small.
 struct PointOut {
     values: Vec<f64>,
     steps: u64,
     drift: f64,
+}
+
+/// What is kept of one representative solve: how it was computed and its time trace.
+struct SolveInfo {
     method: String,
     reason: String,
     frame: Vec<String>,
@@ -1261,8 +1267,8 @@ fn solve_at(
     c: &Checked<'_>,
     plan: &EvolvePlan,
     values: &Values,
-    keep_trace: bool,
-) -> Result<PointOut, String> {
+    keep: bool,
+) -> Result<(PointOut, Option<SolveInfo>), String> {
     let e = c
         .evolves
         .get(&plan.name)
@@ -1288,35 +1294,37 @@ fn solve_at(
     match built {
         Built::Evolve(p) => {
             let sol = solve(&p).map_err(|e| e.to_string())?;
-            let frame = frame_lines(&sol.frame);
-            let trace = keep_trace.then(|| {
-                (
+            let info = keep.then(|| SolveInfo {
+                method: sol.diagnostics.method.clone(),
+                reason: sol.diagnostics.reason.clone(),
+                frame: frame_lines(&sol.frame),
+                trace: Some((
                     sol.times.clone(),
                     sol.series.iter().map(|s| s.values.clone()).collect(),
-                )
+                )),
             });
-            Ok(PointOut {
+            let point = PointOut {
                 values: sol.final_values(),
                 steps: sol.diagnostics.steps,
                 drift: sol.diagnostics.norm_drift,
-                method: sol.diagnostics.method.clone(),
-                reason: sol.diagnostics.reason.clone(),
-                frame,
-                trace,
-            })
+            };
+            Ok((point, info))
         }
         Built::Steady(p) => {
             let sol = steady_state(&p).map_err(|e| e.to_string())?;
             let tr: f64 = (0..sol.state.n()).map(|i| sol.state.rho(i, i).re).sum();
-            Ok(PointOut {
-                values: sol.values,
-                steps: 1,
-                drift: (tr - 1.0).abs(),
+            let info = keep.then(|| SolveInfo {
                 method: "steady-state".into(),
                 reason: "steady = true: linear solve of L ρ = 0 with Tr ρ = 1".into(),
                 frame: frame_lines(&sol.frame),
                 trace: None,
-            })
+            });
+            let point = PointOut {
+                values: sol.values,
+                steps: 1,
+                drift: (tr - 1.0).abs(),
+            };
+            Ok((point, info))
         }
     }
 }
@@ -1352,18 +1360,24 @@ fn execute(
         .evolves
         .get(&plan.name)
         .ok_or("internal: evolve block missing")?;
-    let at_point = |coords: &[f64]| -> Result<PointOut, String> {
+    // `keep`: also return how the point was solved (and its trace, without an average).
+    let at_point = |coords: &[f64], keep: bool| -> Result<(PointOut, Option<SolveInfo>), String> {
         match &plan.average {
-            None => solve_at(
-                c,
-                plan,
-                &point_values(c, plan, coords, None)?,
-                plan.axes.is_empty(),
-            ),
+            None => solve_at(c, plan, &point_values(c, plan, coords, None)?, keep),
             Some((_, nodes, weights)) => {
                 let mut acc: Option<PointOut> = None;
-                for (x, w) in nodes.iter().zip(weights) {
-                    let r = solve_at(c, plan, &point_values(c, plan, coords, Some(*x))?, false)?;
+                let mut info = None;
+                for (k, (x, w)) in nodes.iter().zip(weights).enumerate() {
+                    let (r, i) = solve_at(
+                        c,
+                        plan,
+                        &point_values(c, plan, coords, Some(*x))?,
+                        keep && k == 0,
+                    )?;
+                    if let Some(mut i) = i {
+                        i.trace = None;
+                        info = Some(i);
+                    }
                     match &mut acc {
                         None => {
                             acc = Some(PointOut {
@@ -1380,7 +1394,8 @@ fn execute(
                         }
                     }
                 }
-                acc.ok_or_else(|| "an empty average".to_string())
+                acc.map(|a| (a, info))
+                    .ok_or_else(|| "an empty average".to_string())
             }
         }
     };
@@ -1393,8 +1408,9 @@ fn execute(
             _ => 1,
         })
         .collect();
-    let points: Vec<PointOut> = if plan.axes.is_empty() {
-        vec![at_point(&[])?]
+    let (points, info): (Vec<PointOut>, Option<SolveInfo>) = if plan.axes.is_empty() {
+        let (p, info) = at_point(&[], true)?;
+        (vec![p], info)
     } else {
         let axes: Result<Vec<Axis>, _> = plan
             .axes
@@ -1414,20 +1430,29 @@ fn execute(
             progress: Some(&report),
             cancel: None,
         };
-        run_grid(&grid, &sopts, |coords| at_point(coords)).map_err(|err| match err {
-            SweepError::Point { coords, error, .. } => {
-                let at: Vec<String> = plan
-                    .axes
-                    .iter()
-                    .zip(&coords)
-                    .map(|((n, _, d), v)| format!("{n} = {}", expr::format_quantity(*v, *d)))
-                    .collect();
-                format!("at {}: {error}", at.join(", "))
-            }
-            other => other.to_string(),
-        })?
+        // The first point, solved once more on its own, tells how the sweep was solved.
+        let first: Vec<f64> = plan.axes.iter().map(|(_, v, _)| v[0]).collect();
+        let (_, mut info) = at_point(&first, true)?;
+        if let Some(i) = &mut info {
+            i.trace = None;
+        }
+        let points = run_grid(&grid, &sopts, |coords| at_point(coords, false).map(|r| r.0))
+            .map_err(|err| match err {
+                SweepError::Point { coords, error, .. } => {
+                    let at: Vec<String> = plan
+                        .axes
+                        .iter()
+                        .zip(&coords)
+                        .map(|((n, _, d), v)| format!("{n} = {}", expr::format_quantity(*v, *d)))
+                        .collect();
+                    format!("at {}: {error}", at.join(", "))
+                }
+                other => other.to_string(),
+            })?;
+        (points, info)
     };
-    let first = &points[0];
+    let info = info.ok_or("internal: no solve information")?;
+    let trace = info.trace.as_ref().filter(|_| e.samples.is_some());
     let mut observables = Vec::new();
     let mut offset = 0;
     for ((o, _), w) in e.observe.iter().zip(&widths) {
@@ -1435,10 +1460,7 @@ fn execute(
             .iter()
             .flat_map(|p| p.values[offset..offset + w].to_vec())
             .collect();
-        let trace = first
-            .trace
-            .as_ref()
-            .map(|(_, s)| s[observables.len()].clone());
+        let trace = trace.map(|(_, s)| s[observables.len()].clone());
         observables.push(ObsResult {
             label: o.canonical(),
             width: *w,
@@ -1459,16 +1481,16 @@ fn execute(
                 values: v.clone(),
             })
             .collect(),
-        times: first.trace.as_ref().map(|(t, _)| t.clone()),
+        times: trace.map(|(t, _)| t.clone()),
         observables,
         solver: SolverInfo {
-            method: first.method.clone(),
-            reason: first.reason.clone(),
+            method: info.method.clone(),
+            reason: info.reason.clone(),
             rtol,
             atol,
             steps: points.iter().map(|p| p.steps).sum(),
             norm_drift: points.iter().map(|p| p.drift).fold(0.0, f64::max),
-            frame: first.frame.clone(),
+            frame: info.frame.clone(),
         },
         steady: e.steady,
     })
