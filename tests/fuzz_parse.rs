@@ -2,11 +2,11 @@
 //! token soups go through `load`, `parse`, `session::check` and diagnostic rendering, seeded and
 //! deterministic, each failing input reported minimised.
 
-use std::cell::RefCell;
+use std::cell::{Cell, RefCell};
 use std::panic::{self, AssertUnwindSafe};
 use std::path::Path;
 use std::sync::Once;
-use std::time::Instant;
+use std::time::{Duration, Instant};
 
 use fieldbook::kernel::session;
 use fieldbook::notebook;
@@ -38,16 +38,23 @@ impl Rng {
 }
 
 thread_local! {
-    /// Where the last panic on this thread happened, written by the quiet panic hook.
-    static LAST_PANIC: RefCell<String> = const { RefCell::new(String::new()) };
+    /// Whether this thread is running a probe (panics expected, recorded quietly).
+    static PROBING: Cell<bool> = const { Cell::new(false) };
+    /// Where the last probe panic on this thread happened, written by the panic hook.
+    static LAST_PANIC: RefCell<(String, String)> = const { RefCell::new((String::new(), String::new())) };
 }
 
-/// Replace the panic hook by one that records the message and location instead of printing
-/// them, so that thousands of probe runs during minimisation stay quiet.
+/// Install a panic hook that records a probe's panic message and location instead of printing
+/// them, so that thousands of probe runs during minimisation stay quiet; other panics (the
+/// test's own assertions) print as usual.
 fn quiet_panics() {
     static ONCE: Once = Once::new();
     ONCE.call_once(|| {
-        panic::set_hook(Box::new(|info| {
+        let default = panic::take_hook();
+        panic::set_hook(Box::new(move |info| {
+            if !PROBING.with(Cell::get) {
+                return default(info);
+            }
             let msg = info
                 .payload()
                 .downcast_ref::<&str>()
@@ -58,7 +65,7 @@ fn quiet_panics() {
                 .location()
                 .map(|l| format!("{}:{}", l.file(), l.line()))
                 .unwrap_or_default();
-            LAST_PANIC.with(|p| *p.borrow_mut() = format!("{msg} at {at}"));
+            LAST_PANIC.with(|p| *p.borrow_mut() = (at, msg));
         }));
     });
 }
@@ -81,9 +88,12 @@ fn pipeline(bytes: &[u8]) {
     }
 }
 
-/// `Some(panic description)` if the pipeline panics on `bytes`.
-fn panics(bytes: &[u8]) -> Option<String> {
-    match panic::catch_unwind(AssertUnwindSafe(|| pipeline(bytes))) {
+/// `Some((location, message))` if the pipeline panics on `bytes`.
+fn panics(bytes: &[u8]) -> Option<(String, String)> {
+    PROBING.with(|p| p.set(true));
+    let outcome = panic::catch_unwind(AssertUnwindSafe(|| pipeline(bytes)));
+    PROBING.with(|p| p.set(false));
+    match outcome {
         Ok(()) => None,
         Err(_) => Some(LAST_PANIC.with(|p| p.borrow().clone())),
     }
@@ -91,8 +101,8 @@ fn panics(bytes: &[u8]) -> Option<String> {
 
 /// Shrink a panicking input: drop whole lines, then ever smaller byte ranges, while it still
 /// panics at the same place. Bounded, so a slow case cannot stall the test.
-fn minimise(input: &[u8], why: &str) -> Vec<u8> {
-    let same = |b: &[u8]| panics(b).is_some_and(|w| w == why);
+fn minimise(input: &[u8], site: &str) -> Vec<u8> {
+    let same = |b: &[u8]| panics(b).is_some_and(|(at, _)| at == site);
     let mut cur = input.to_vec();
     let mut budget = 3000;
     // Lines first.
@@ -597,17 +607,39 @@ fn token_soup(rng: &mut Rng) -> Vec<u8> {
     s.into_bytes()
 }
 
-/// A panic site, the minimised input that reaches it and the family it came from.
-type Failure = (String, Vec<u8>, &'static str);
+/// A panic: where, what it said (for the smallest input), that input, and the family of the
+/// first input that reached it, with how many inputs did.
+struct Failure {
+    site: String,
+    message: String,
+    input: Vec<u8>,
+    family: &'static str,
+    hits: usize,
+}
 
 /// Run one input; on a panic at a site not seen before, keep the input, minimised.
-fn probe(bytes: Vec<u8>, family: &'static str, failures: &mut Vec<Failure>) {
-    if let Some(why) = panics(&bytes) {
-        if !failures.iter().any(|(w, _, _)| *w == why) {
-            let small = minimise(&bytes, &why);
-            failures.push((why, small, family));
-        }
+/// Returns how long the input took (minimisation not counted).
+fn probe(bytes: Vec<u8>, family: &'static str, failures: &mut Vec<Failure>) -> Duration {
+    let t0 = Instant::now();
+    let outcome = panics(&bytes);
+    let took = t0.elapsed();
+    let Some((site, _)) = outcome else {
+        return took;
+    };
+    if let Some(f) = failures.iter_mut().find(|f| f.site == site) {
+        f.hits += 1;
+        return took;
     }
+    let input = minimise(&bytes, &site);
+    let message = panics(&input).map(|(_, m)| m).unwrap_or_default();
+    failures.push(Failure {
+        site,
+        message,
+        input,
+        family,
+        hits: 1,
+    });
+    took
 }
 
 /// Escape an input for the failure report.
@@ -623,37 +655,43 @@ fn no_input_makes_check_panic() {
     quiet_panics();
     let seeds = seeds();
     let t0 = Instant::now();
-    let mut rng = Rng(0x00F1_E1DB_0015);
+    // Deterministic by default; `FIELDBOOK_FUZZ_SEED=N` and `FIELDBOOK_FUZZ_SCALE=K` (K times
+    // the cases) explore further by hand.
+    let env = |k: &str| std::env::var(k).ok().and_then(|v| v.parse::<u64>().ok());
+    let mut rng = Rng(env("FIELDBOOK_FUZZ_SEED").unwrap_or(0x00F1_E1DB_0015));
+    let scale = env("FIELDBOOK_FUZZ_SCALE").unwrap_or(1).max(1) as usize;
     let mut failures: Vec<Failure> = Vec::new();
     let mut counts = [0usize; 3];
+    let mut slowest = Duration::ZERO;
     // (i) random bytes
-    for _ in 0..2500 {
+    for _ in 0..6000 * scale {
         let b = random_bytes(&mut rng);
-        probe(b, "random bytes", &mut failures);
+        slowest = slowest.max(probe(b, "random bytes", &mut failures));
         counts[0] += 1;
     }
     // (ii) mutations of every seed file, one to five at a time
-    for round in 0..4000 {
+    for round in 0..12000 * scale {
         let mut b = seeds[round % seeds.len()].1.clone();
         for _ in 0..1 + rng.below(5) {
             mutate(&mut rng, &mut b, &seeds);
         }
-        probe(b, "mutated example", &mut failures);
+        slowest = slowest.max(probe(b, "mutated example", &mut failures));
         counts[1] += 1;
     }
     // (iii) token soups
-    for _ in 0..3000 {
+    for _ in 0..9000 * scale {
         let b = token_soup(&mut rng);
-        probe(b, "token soup", &mut failures);
+        slowest = slowest.max(probe(b, "token soup", &mut failures));
         counts[2] += 1;
     }
     let elapsed = t0.elapsed();
     println!(
-        "fuzz: {} random, {} mutated, {} soups in {:.2} s",
+        "fuzz: {} random, {} mutated, {} soups in {:.2} s (slowest case {:.1} ms)",
         counts[0],
         counts[1],
         counts[2],
-        elapsed.as_secs_f64()
+        elapsed.as_secs_f64(),
+        slowest.as_secs_f64() * 1e3
     );
     assert!(
         failures.is_empty(),
@@ -661,9 +699,13 @@ fn no_input_makes_check_panic() {
         failures.len(),
         failures
             .iter()
-            .map(|(why, input, family)| format!(
-                "- {why}\n  ({family}) minimised input: {}",
-                show(input)
+            .map(|f| format!(
+                "- at {}: {}\n  {} input(s), the first a {}; minimised: {}",
+                f.site,
+                f.message,
+                f.hits,
+                f.family,
+                show(&f.input)
             ))
             .collect::<Vec<_>>()
             .join("\n")

@@ -686,19 +686,19 @@ impl Builder<'_> {
     /// Runtime observables for `observe`.
     pub fn observables(
         &mut self,
-        obs: &[(ObsSpec, Span)],
+        obs: &[(ObsSpec, Span, Vec<Span>)],
         atom: &BuiltAtom,
         atom_name: &str,
     ) -> Option<Vec<Observable>> {
         let mut out = Vec::new();
         let mut ok = true;
-        for (o, span) in obs {
+        for (o, span, level_spans) in obs {
             let mut ids = Vec::new();
-            for l in o.levels() {
+            for (k, l) in o.levels().into_iter().enumerate() {
                 match atom.levels.get(l) {
                     Some(&id) => ids.push(id),
                     None => {
-                        self.level(atom, l, span, atom_name);
+                        self.level(atom, l, level_spans.get(k).unwrap_or(span), atom_name);
                         ok = false;
                     }
                 }

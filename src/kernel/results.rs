@@ -242,29 +242,16 @@ pub fn eval(
         let ad = Dim(axes[ai].dim);
         expr::expect_dim(&q, ad, &format!("the value of `{name}`"), 0..text.len())
             .map_err(|e| (vspan.clone(), e.message, e.hint))?;
-        let vals = &axes[ai].values;
-        let span = vals
-            .iter()
-            .fold(0.0f64, |m, v| m.max(v.abs()))
-            .max(f64::MIN_POSITIVE);
-        let Some(k) = vals.iter().position(|v| (v - q.value).abs() <= 1e-9 * span) else {
-            let nearest = vals
-                .iter()
-                .min_by(|a, b| (*a - q.value).abs().total_cmp(&(*b - q.value).abs()))
-                .copied()
-                .unwrap_or(f64::NAN);
-            return Err((
+        let k = grid_index(&axes[ai].values, q.value, ad).map_err(|hint| {
+            (
                 vspan.clone(),
                 format!(
                     "{} is not a point of the `{name}` axis",
                     expr::format_quantity(q.value, ad)
                 ),
-                Some(format!(
-                    "the nearest point is {}",
-                    expr::format_quantity(nearest, ad)
-                )),
-            ));
-        };
+                Some(hint),
+            )
+        })?;
         // Keep only index k along axis ai.
         let shape: Vec<usize> = axes.iter().map(|a| a.values.len()).collect();
         let inner: usize = shape[ai + 1..].iter().product();
@@ -324,6 +311,28 @@ pub fn eval(
             Some("select the other axes with `at AXIS = VALUE`".into()),
         )),
     }
+}
+
+/// The index of the grid point equal to `x` (to 10⁻⁹ of the axis's largest magnitude), or a hint
+/// naming the nearest point.
+pub fn grid_index(vals: &[f64], x: f64, dim: Dim) -> Result<usize, String> {
+    let scale = vals
+        .iter()
+        .fold(0.0f64, |m, v| m.max(v.abs()))
+        .max(f64::MIN_POSITIVE);
+    vals.iter()
+        .position(|v| (v - x).abs() <= 1e-9 * scale)
+        .ok_or_else(|| {
+            let nearest = vals
+                .iter()
+                .min_by(|a, b| (*a - x).abs().total_cmp(&(*b - x).abs()))
+                .copied()
+                .unwrap_or(f64::NAN);
+            format!(
+                "the nearest point is {}",
+                expr::format_quantity(nearest, dim)
+            )
+        })
 }
 
 /// Apply a reduction to a series. `argmax`/`argmin` refine the extremum by the parabola through

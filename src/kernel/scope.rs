@@ -108,21 +108,38 @@ impl Scope {
                 }
                 _ => {
                     ok = false;
-                    diags.push(self.undefined(&name, ex.at(&span), order));
+                    diags.push(self.undefined(&name, ex.at(&span), order, &[]));
                 }
             }
         }
         ok
     }
 
-    fn undefined(&self, name: &str, span: Span, order: usize) -> Diagnostic {
-        let cands = self.params_before(order);
+    /// "not defined", suggesting a parameter visible from block `order` (or one of `local`, the
+    /// block's own), else a unit, constant or function the expression language knows.
+    fn undefined(&self, name: &str, span: Span, order: usize, local: &[&str]) -> Diagnostic {
+        let mut cands = self.params_before(order);
+        cands.extend(local.iter().copied().filter(|l| *l != name));
+        cands.sort_unstable();
+        let builtin = || {
+            expr::parse(name)
+                .and_then(|e| e.eval(&HashMap::<String, expr::Quantity>::new()))
+                .err()
+                .and_then(|e| e.hint)
+        };
         let hint = match did_you_mean(name, cands.iter().copied()) {
             Some(c) => format!("did you mean `{c}`?"),
-            None if cands.is_empty() => "define it in a `params` block above".to_string(),
-            None => format!("parameters defined above: {}", list(&cands)),
+            None => match builtin() {
+                Some(h) if h.contains("did you mean") => h,
+                _ if cands.is_empty() => "define it in a `params` block above".to_string(),
+                _ => format!("parameters defined above: {}", list(&cands)),
+            },
         };
-        Diagnostic::error(span, format!("`{name}` is not defined")).with_hint(hint)
+        Diagnostic::error(
+            span,
+            format!("`{name}` is not a parameter, constant or unit"),
+        )
+        .with_hint(hint)
     }
 }
 
@@ -302,7 +319,10 @@ fn order_block(
                         format!("the parameter `{name}` is defined below this block"),
                     )
                     .with_hint("a block sees only names defined above it; move the parameter up"),
-                    _ => scope.undefined(&name, p.ex.at(&span), order),
+                    _ => {
+                        let local: Vec<&str> = index.keys().copied().collect();
+                        scope.undefined(&name, p.ex.at(&span), order, &local)
+                    }
                 };
                 match &p.overridden {
                     Some(t) => cli.push(format!("--set {}={t}: {}", p.name, d.message)),

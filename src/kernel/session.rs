@@ -31,6 +31,8 @@ struct Meta {
     order: usize,
     observed: Vec<ObsSpec>,
     axes: Vec<(String, Dim)>,
+    /// The sweep grid, so that `at` selections are checked before running.
+    grid: HashMap<String, Vec<f64>>,
     traced: bool,
 }
 
@@ -115,7 +117,16 @@ pub fn check<'d>(doc: &'d Document, overrides: &[(String, String)]) -> CheckOutc
     let mut last_atom: Option<String> = None;
     let blocks: Vec<_> = doc.blocks().collect();
     for (order, cell) in blocks.iter().enumerate() {
-        let Some(block) = &cell.block else { continue };
+        let Some(block) = &cell.block else {
+            // A broken atom is still the atom that lights below it refer to (its errors are
+            // reported already), so they do not add "no atom above" to them.
+            if cell.raw.kind == "atom"
+                && let Some((n, _)) = &cell.raw.name
+            {
+                last_atom = Some(n.clone());
+            }
+            continue;
+        };
         let name = cell
             .raw
             .name
@@ -247,8 +258,13 @@ pub fn check<'d>(doc: &'d Document, overrides: &[(String, String)]) -> CheckOutc
                         name.clone(),
                         Meta {
                             order,
-                            observed: e.observe.iter().map(|(o, _)| o.clone()).collect(),
+                            observed: e.observe.iter().map(|(o, _, _)| o.clone()).collect(),
                             axes: plan.axes.iter().map(|(n, _, d)| (n.clone(), *d)).collect(),
+                            grid: plan
+                                .axes
+                                .iter()
+                                .map(|(n, v, _)| (n.clone(), v.clone()))
+                                .collect(),
                             traced: e.samples.is_some(),
                         },
                     );
@@ -425,7 +441,10 @@ fn check_evolve(
             diags.push(d);
             return None;
         }
-        let seq = c.sequences.get(&s.name)?;
+        let Some(seq) = c.sequences.get(&s.name) else {
+            check_atom_only(c, e, &atom, span, diags);
+            return None;
+        };
         sequence = Some(s.name.clone());
         sequence_lights(seq)
     };
@@ -447,6 +466,7 @@ fn check_evolve(
         }
     }
     if lights.iter().any(|l| !c.lights.contains_key(l)) {
+        check_atom_only(c, e, &atom, span, diags);
         return None;
     }
     if let Some(cut) = &e.cutoff {
@@ -730,6 +750,28 @@ fn check_evolve(
     })
 }
 
+/// When an evolve block's lights or sequence failed (already reported), still check what it asks
+/// of the atom alone: its observables and its initial state.
+fn check_atom_only(
+    c: &Checked<'_>,
+    e: &EvolveBlock,
+    atom: &str,
+    span: &Span,
+    diags: &mut Vec<Diagnostic>,
+) {
+    if let Some((ab, aspan)) = c.atoms.get(atom) {
+        let mut b = build::Builder {
+            values: &c.values,
+            diags,
+            warn: false,
+        };
+        if let Some(built) = b.atom(atom, ab, aspan, &[]) {
+            b.observables(&e.observe, &built, atom);
+            b.start(&e.start, &built, atom, span);
+        }
+    }
+}
+
 fn inputs_for<'a>(
     c: &'a Checked<'_>,
     e: &'a EvolveBlock,
@@ -812,7 +854,8 @@ fn check_path(
             if !meta.observed.contains(o) {
                 diags.push(
                     Diagnostic::error(
-                        p.at(&path.target_span),
+                        // Past `final.` or `trace.`: the observable itself.
+                        p.at(&(path.target_span.start + 6..path.target_span.end)),
                         format!("`{}` is not observed by `{}`", o.canonical(), path.block),
                     )
                     .with_hint(format!("add \"{}\" to its `observe` list", o.canonical())),
@@ -883,7 +926,23 @@ fn check_path(
         };
         let adim = axes[i].1;
         match expr::parse(text).and_then(|e| e.eval(&c.values)) {
-            Ok(q) if q.dim == adim => {}
+            Ok(q) if q.dim == adim => {
+                if let Some(vals) = meta.grid.get(name)
+                    && let Err(hint) = results::grid_index(vals, q.value, adim)
+                {
+                    diags.push(
+                        Diagnostic::error(
+                            p.at(vspan),
+                            format!(
+                                "{} is not a point of the `{name}` axis",
+                                expr::format_quantity(q.value, adim)
+                            ),
+                        )
+                        .with_hint(hint),
+                    );
+                    return None;
+                }
+            }
             Ok(q) => {
                 diags.push(Diagnostic::error(
                     p.at(vspan),
@@ -1402,7 +1461,7 @@ fn execute(
     let widths: Vec<usize> = e
         .observe
         .iter()
-        .map(|(o, _)| match o {
+        .map(|(o, _, _)| match o {
             ObsSpec::Coherence(..) => 2,
             ObsSpec::Bloch(..) => 3,
             _ => 1,
@@ -1455,7 +1514,7 @@ fn execute(
     let trace = info.trace.as_ref().filter(|_| e.samples.is_some());
     let mut observables = Vec::new();
     let mut offset = 0;
-    for ((o, _), w) in e.observe.iter().zip(&widths) {
+    for ((o, _, _), w) in e.observe.iter().zip(&widths) {
         let finals: Vec<f64> = points
             .iter()
             .flat_map(|p| p.values[offset..offset + w].to_vec())

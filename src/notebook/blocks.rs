@@ -1,6 +1,9 @@
 //! Typed scenario blocks: each block's TOML tree read into a struct whose values are parsed
 //! expressions, names and result paths, each with its span. Reading reports every problem it
 //! finds and keeps going; nothing here evaluates an expression.
+// Blocks are read once per file and never stored in bulk; boxing their larger variants would
+// only add noise.
+#![allow(clippy::large_enum_variant)]
 
 use super::diag::{Diagnostic, did_you_mean};
 use super::expr::{self, Expr};
@@ -205,8 +208,6 @@ pub enum ShapeDef {
 
 /// One step of a sequence.
 #[derive(Clone, Debug)]
-// Steps are read once per file; boxing the larger variant would only add noise.
-#[allow(clippy::large_enum_variant)]
 pub enum StepDef {
     /// A pulse of a light.
     Pulse {
@@ -360,7 +361,7 @@ pub struct EvolveBlock {
     /// Step limit.
     pub max_steps: Option<u64>,
     /// Observables with their spans.
-    pub observe: Vec<(ObsSpec, Span)>,
+    pub observe: Vec<(ObsSpec, Span, Vec<Span>)>,
     /// Number of samples (time traces).
     pub samples: Option<(usize, Span)>,
     /// Sweep axes.
@@ -480,6 +481,8 @@ pub enum Block {
 /// Reads values out of a TOML table, collecting diagnostics.
 pub struct Reader<'a> {
     diags: &'a mut Vec<Diagnostic>,
+    /// Top-level keys the kind does not accept (already reported).
+    typos: Vec<String>,
     /// Span of the whole block, for "missing key" errors.
     block: Span,
     kind: &'static str,
@@ -500,7 +503,19 @@ fn key_span(t: &Entries, key: &str) -> Option<Span> {
 impl<'a> Reader<'a> {
     /// A reader for a block of `kind` spanning `block`.
     pub fn new(diags: &'a mut Vec<Diagnostic>, block: Span, kind: &'static str) -> Self {
-        Self { diags, block, kind }
+        Self {
+            diags,
+            typos: vec![],
+            block,
+            kind,
+        }
+    }
+
+    /// Tell the reader which top-level keys were unknown, so that a missing required key that
+    /// one of them misspells is not reported twice.
+    pub fn with_typos(mut self, typos: Vec<String>) -> Self {
+        self.typos = typos;
+        self
     }
 
     fn error(&mut self, span: Span, msg: impl Into<String>, hint: impl Into<String>) {
@@ -514,6 +529,10 @@ impl<'a> Reader<'a> {
     }
 
     fn missing(&mut self, key: &str, hint: &str) {
+        // An unknown key that looks like this one was already reported as a typo.
+        if self.typos.iter().any(|t| strsim::levenshtein(t, key) <= 2) {
+            return;
+        }
         let span = self.block.start..self.block.start + 3;
         self.error(
             span,
@@ -523,6 +542,9 @@ impl<'a> Reader<'a> {
     }
 
     fn wrong_type(&mut self, key: &str, node: &Node, expected: &str) {
+        if node.value == Value::Invalid {
+            return;
+        }
         self.error(
             node.span.clone(),
             format!("`{key}` must be {expected}, not {}", node.value.type_name()),
@@ -669,7 +691,7 @@ impl<'a> Reader<'a> {
             Some(o) => Some(o),
             None => {
                 let hint = match did_you_mean(s, options.iter().copied()) {
-                    Some(o) => format!("did you mean `{o}`?"),
+                    Some(o) => format!("did you mean `{o}`? (choose one of {})", list(options)),
                     None => format!("choose one of {}", list(options)),
                 };
                 self.error(span, format!("`{s}` is not a valid `{key}`"), hint);
@@ -1149,6 +1171,11 @@ impl<'a> Reader<'a> {
                         steps.push(StepDef::Wait { duration });
                     }
                 }
+                (Some(_), Some(_)) => self.error(
+                    key_span(st, "wait").unwrap_or(item.span.clone()),
+                    "a step cannot hold both `pulse` and `wait`",
+                    "put the wait in a `[[step]]` of its own",
+                ),
                 _ => self.error(
                     item.span.clone(),
                     "each step needs exactly one of `pulse` and `wait`",
@@ -1293,7 +1320,23 @@ impl<'a> Reader<'a> {
                             continue;
                         };
                         match path::parse_observable(s) {
-                            Ok(o) => observe.push((o, span)),
+                            Ok(o) => {
+                                // Where each level name sits, for "no such level" errors.
+                                let exact = span.len() == s.len();
+                                let mut pos = s.find('(').unwrap_or(0);
+                                let mut spans = Vec::new();
+                                for l in o.levels() {
+                                    match s[pos..].find(l).filter(|_| exact) {
+                                        Some(i) => {
+                                            let at = span.start + pos + i;
+                                            spans.push(at..at + l.len());
+                                            pos += i + l.len();
+                                        }
+                                        None => spans.push(span.clone()),
+                                    }
+                                }
+                                observe.push((o, span, spans))
+                            }
                             Err(e) => {
                                 let at = span.start + e.span.start..span.start + e.span.end;
                                 let at = if span.len() == s.len() {
@@ -1319,7 +1362,7 @@ impl<'a> Reader<'a> {
                 );
                 return None;
             }
-            Some((v as usize, s))
+            Some((v as usize, key_span(t, "samples").unwrap_or(n.span.clone())))
         });
         let mut sweep = Vec::new();
         if let Some(n) = get(t, "sweep")
@@ -1358,9 +1401,14 @@ impl<'a> Reader<'a> {
                     let to = self.opt_expr(at, "to");
                     let points = get(at, "points").and_then(|p| self.integer("points", p));
                     let (Some(from), Some(to), Some(points)) = (from, to, points) else {
-                        if get(at, "from").is_none()
-                            || get(at, "to").is_none()
-                            || get(at, "points").is_none()
+                        // A misspelt key was reported already; do not add a second message.
+                        let typo = at.iter().any(|(k, _)| {
+                            !["from", "to", "points", "log", "values"].contains(&k.name.as_str())
+                        });
+                        if !typo
+                            && (get(at, "from").is_none()
+                                || get(at, "to").is_none()
+                                || get(at, "points").is_none())
                         {
                             self.error(v.span.clone(), format!("the sweep over `{}` needs `from`, `to` and `points` (or `values`)", k.name), "e.g. `{ from = \"-2π × 1 MHz\", to = \"2π × 1 MHz\", points = 201 }`");
                         }

@@ -82,11 +82,10 @@ impl Diagnostic {
         let (line, col) = src.line_col(self.span.start);
         let text = src.line_text(line);
         let line_end = src.line_start(line) + text.len();
-        let end = src.floor_char(self.span.end.clamp(self.span.start, line_end));
-        let width = src.text()[src.floor_char(self.span.start).min(end)..end]
-            .chars()
-            .count()
-            .max(1);
+        // The span may start in a trimmed line ending (`\r`); underline from within the line.
+        let start = src.floor_char(self.span.start.min(line_end));
+        let end = src.floor_char(self.span.end.clamp(start, line_end));
+        let width = src.text()[start..end].chars().count().max(1);
         let gutter = line.to_string().len();
         let shown: String = text
             .chars()

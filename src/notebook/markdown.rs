@@ -71,6 +71,7 @@ pub fn split(text: &str) -> (Cells, Vec<Diagnostic>) {
     let mut prose_from = 0;
     let mut open: Option<(Info, usize)> = None;
     let mut body_range: Option<Span> = None;
+    let mut text_len = 0;
     let parser = Parser::new_ext(text, Options::empty()).into_offset_iter();
     for (event, range) in parser {
         match event {
@@ -78,9 +79,11 @@ pub fn split(text: &str) -> (Cells, Vec<Diagnostic>) {
                 if let Some(found) = classify(text, &range, &info, &mut diags) {
                     open = Some((found, range.start));
                     body_range = None;
+                    text_len = 0;
                 }
             }
-            Event::Text(_) if open.is_some() => {
+            Event::Text(t) if open.is_some() => {
+                text_len += t.len();
                 body_range = Some(match body_range.take() {
                     Some(r) => r.start..range.end,
                     None => range.clone(),
@@ -93,6 +96,20 @@ pub fn split(text: &str) -> (Cells, Vec<Diagnostic>) {
                         .find('\n')
                         .map_or(range.end, |i| start + i + 1);
                     let body = body_range.take().unwrap_or(after_fence..after_fence);
+                    // Inside a block quote or a list item the body's lines carry markers or
+                    // indentation that are not part of it; such blocks are refused rather than
+                    // read with positions that would point at the wrong characters.
+                    let crs = text[body.clone()].matches("\r\n").count();
+                    if body.len() != text_len && body.len() - crs != text_len {
+                        diags.push(
+                            Diagnostic::error(
+                                kind_span.clone(),
+                                format!("this `{kind}` block sits inside a block quote or a list item"),
+                            )
+                            .with_hint("scenario blocks must start at the left margin, outside quotes and lists"),
+                        );
+                        continue;
+                    }
                     if prose_from < start {
                         out.cells.push(Cell::Prose(prose_from..start));
                     }

@@ -155,7 +155,8 @@ fn read_block(raw: &RawBlock, diags: &mut Vec<Diagnostic>) -> Option<Block> {
     let before = diags.len();
     schema::check_keys(def, "", &table, diags);
     let span = raw.span.clone();
-    let mut r = Reader::new(diags, span, def.kind);
+    let typos = schema::unknown_top(def, &table);
+    let mut r = Reader::new(diags, span, def.kind).with_typos(typos);
     let block = match def.kind {
         "params" => Some(Block::Params(r.params(&table))),
         "atom" => Some(Block::Atom(r.atom(&table))),

@@ -779,6 +779,17 @@ fn children<'a>(def: &'a KindDef, prefix: &str) -> impl Iterator<Item = &'a KeyD
 /// recursing into sub-tables and arrays of tables. Tables whose keys are placeholders accept any
 /// key name.
 pub fn check_keys(def: &KindDef, prefix: &str, table: &[(Key, Node)], diags: &mut Vec<Diagnostic>) {
+    check_keys_at(def, prefix, prefix, table, diags);
+}
+
+/// [`check_keys`] with `shown`, the path as the user wrote it (`sweep.delta`), for messages.
+fn check_keys_at(
+    def: &KindDef,
+    prefix: &str,
+    shown: &str,
+    table: &[(Key, Node)],
+    diags: &mut Vec<Diagnostic>,
+) {
     let allowed: Vec<&KeyDef> = children(def, prefix).collect();
     for (key, node) in table {
         let last = |k: &KeyDef| k.path.rsplit('.').next().unwrap_or(k.path);
@@ -789,9 +800,9 @@ pub fn check_keys(def: &KindDef, prefix: &str, table: &[(Key, Node)], diags: &mu
         let Some(hit) = hit else {
             let names: Vec<&str> = allowed.iter().map(|k| last(k)).collect();
             let where_ = if prefix.is_empty() {
-                format!("a `{}` block", def.kind)
+                format!("{} `{}` block", article(def.kind), def.kind)
             } else {
-                format!("`{prefix}` of a `{}` block", def.kind)
+                format!("`{shown}` of {} `{}` block", article(def.kind), def.kind)
             };
             let hint = match did_you_mean(&key.name, names.iter().copied()) {
                 Some(s) => format!("did you mean `{s}`?"),
@@ -807,17 +818,47 @@ pub fn check_keys(def: &KindDef, prefix: &str, table: &[(Key, Node)], diags: &mu
             continue;
         };
         match &node.value {
-            Value::Table(sub) => check_keys(def, hit.path, sub, diags),
+            Value::Table(sub) => check_keys_at(def, hit.path, &join(shown, &key.name), sub, diags),
             Value::Array(items) => {
                 for item in items {
                     if let Value::Table(sub) = &item.value {
-                        check_keys(def, hit.path, sub, diags);
+                        check_keys_at(def, hit.path, &join(shown, &key.name), sub, diags);
                     }
                 }
             }
             _ => {}
         }
     }
+}
+
+fn join(prefix: &str, key: &str) -> String {
+    if prefix.is_empty() {
+        key.to_string()
+    } else {
+        format!("{prefix}.{key}")
+    }
+}
+
+/// "a" or "an" before a block kind.
+pub fn article(kind: &str) -> &'static str {
+    if kind.starts_with(['a', 'e', 'i', 'o', 'u']) {
+        "an"
+    } else {
+        "a"
+    }
+}
+
+/// The keys of `table` that the kind does not accept at the top level.
+pub fn unknown_top(def: &KindDef, table: &[(Key, Node)]) -> Vec<String> {
+    let allowed: Vec<&str> = children(def, "").map(|k| k.path).collect();
+    if allowed.iter().any(|k| is_placeholder(k)) {
+        return vec![];
+    }
+    table
+        .iter()
+        .filter(|(k, _)| !allowed.contains(&k.name.as_str()))
+        .map(|(k, _)| k.name.clone())
+        .collect()
 }
 
 /// `a`, `b` and `c` — for hints.

@@ -50,6 +50,9 @@ pub enum Value {
     Table(Vec<(Key, Node)>),
     /// A TOML date or time, which no block accepts.
     Datetime,
+    /// A value already reported as invalid (a non-finite float, an integer too large); readers
+    /// skip it without a second message.
+    Invalid,
 }
 
 impl Value {
@@ -63,6 +66,7 @@ impl Value {
             Value::Array(_) => "an array",
             Value::Table(_) => "a table",
             Value::Datetime => "a date",
+            Value::Invalid => "an invalid value",
         }
     }
 }
@@ -215,7 +219,7 @@ fn convert(
                         )
                         .with_hint("write large numbers as floats, e.g. `1e20`"),
                     );
-                    Value::Int(0)
+                    Value::Invalid
                 }
             }
         }
@@ -228,7 +232,7 @@ fn convert(
                         Diagnostic::error(abs.clone(), format!("`{text}` is not a finite number"))
                             .with_hint("NaN and infinite values have no physical meaning here; give a finite value"),
                     );
-                    Value::Float(0.0)
+                    Value::Invalid
                 }
             }
         }
