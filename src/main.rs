@@ -168,6 +168,15 @@ fn one_file(args: &Args, path: &Path) -> u8 {
     };
     let result = session::run(&checked, &opts);
     bar.finish();
+    for p in checked.scope.params.iter().filter(|p| p.overridden.is_some()) {
+        if let Some(q) = checked.values.get(&p.name) {
+            println!(
+                "set {} = {} (--set, instead of the file's value)",
+                p.name,
+                fieldbook::notebook::expr::format_quantity(q.value, q.dim)
+            );
+        }
+    }
     print!(
         "{}",
         summary::text(&doc, &result, t0.elapsed().as_secs_f64())
