@@ -11,6 +11,7 @@ use std::time::Instant;
 use fieldbook::kernel::cache::Cache;
 use fieldbook::kernel::session::{self, RunOptions};
 use fieldbook::notebook::{self, diag::Severity};
+use fieldbook::record;
 use fieldbook::summary;
 
 /// Exit codes.
@@ -27,6 +28,8 @@ options of run and check:
 options of run:
        --no-cache           recompute every evolve block
        --cache DIR          keep cached results in DIR (default: .fieldbook-cache beside each file)
+       --out DIR            write DIR/NAME.record.json (atomically)
+       --force              replace a record of a different input in --out
        fieldbook --version";
 
 struct Args {
@@ -34,6 +37,8 @@ struct Args {
     files: Vec<PathBuf>,
     overrides: Vec<(String, String)>,
     cache: Option<Option<PathBuf>>,
+    out: Option<PathBuf>,
+    force: bool,
 }
 
 fn parse_args(args: Vec<String>) -> Result<Args, String> {
@@ -44,6 +49,8 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
         files: vec![],
         overrides: vec![],
         cache: None,
+        out: None,
+        force: false,
     };
     while let Some(a) = it.next() {
         if let Some(rest) = a.strip_prefix("--set") {
@@ -59,6 +66,10 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
                 .push((k.trim().to_string(), v.trim().to_string()));
         } else if a == "--no-cache" {
             out.cache = Some(None);
+        } else if a == "--out" {
+            out.out = Some(it.next().ok_or("--out needs a folder")?.into());
+        } else if a == "--force" {
+            out.force = true;
         } else if a == "--cache" {
             out.cache = Some(Some(it.next().ok_or("--cache needs a folder")?.into()));
         } else if a.starts_with("--") {
@@ -168,7 +179,12 @@ fn one_file(args: &Args, path: &Path) -> u8 {
     };
     let result = session::run(&checked, &opts);
     bar.finish();
-    for p in checked.scope.params.iter().filter(|p| p.overridden.is_some()) {
+    for p in checked
+        .scope
+        .params
+        .iter()
+        .filter(|p| p.overridden.is_some())
+    {
         if let Some(q) = checked.values.get(&p.name) {
             println!(
                 "set {} = {} (--set, instead of the file's value)",
@@ -184,6 +200,16 @@ fn one_file(args: &Args, path: &Path) -> u8 {
     for e in &result.errors {
         let d = notebook::diag::Diagnostic::error(e.span.clone(), e.message.clone());
         eprint!("{}", d.render(&doc.source));
+    }
+    if let Some(dir) = &args.out {
+        let rec = record::build(&doc, &checked, &result, &diags, record::utc_now());
+        match record::io::write(dir, &rec, args.force) {
+            Ok(p) => println!("record: {}", p.display()),
+            Err(e) => {
+                eprintln!("error: {e}");
+                return INPUT_ERROR;
+            }
+        }
     }
     if !result.errors.is_empty() {
         RUNTIME_FAILURE

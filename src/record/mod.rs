@@ -1,0 +1,359 @@
+//! The record: the machine-readable result of running a run-file, a versioned JSON wire format
+//! (documented in `notebooks-spec/RECORD.md`). Its types are separate from the runtime's and the
+//! kernel's; everything a re-run or a diff needs is here, and everything that changes from run to
+//! run without the input changing (date, timings, platform) sits in `volatile`.
+
+pub mod io;
+
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+use crate::kernel::results::{EvolveResult, PathValue};
+use crate::kernel::session::{Checked, Output, RunOutcome};
+use crate::notebook::Document;
+use crate::notebook::diag::{Diagnostic, Severity};
+use crate::notebook::expr::format_quantity;
+
+/// The `format` field of every record.
+pub const FORMAT: &str = "fieldbook-record";
+/// The schema version this build writes; bumped on any incompatible change.
+pub const VERSION: u32 = 1;
+
+/// A whole record.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Record {
+    /// Always [`FORMAT`].
+    pub format: String,
+    /// Schema version.
+    pub version: u32,
+    /// The run-file's name without extension.
+    pub name: String,
+    /// The source text and its hash.
+    pub source: SourceInfo,
+    /// Every parameter at its resolved value, in evaluation order.
+    pub parameters: Vec<ParamRecord>,
+    /// Results of every evolve block that ran, in order.
+    pub results: Vec<NamedResult>,
+    /// Check outcomes, in order.
+    pub checks: Vec<CheckRecord>,
+    /// Inline values in the prose.
+    pub inline: Vec<InlineRecord>,
+    /// Warnings of the run-file.
+    pub warnings: Vec<Message>,
+    /// Runtime failures.
+    pub errors: Vec<Message>,
+    /// Where this record comes from.
+    pub lineage: Lineage,
+    /// Everything that varies between identical runs; diff ignores it.
+    pub volatile: Volatile,
+}
+
+/// The run-file's text.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct SourceInfo {
+    /// The file name as given.
+    pub file: String,
+    /// The whole text.
+    pub text: String,
+    /// SHA-256 of the text, hex.
+    pub sha256: String,
+}
+
+/// One resolved parameter.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct ParamRecord {
+    /// Its name.
+    pub name: String,
+    /// Its value in SI units.
+    pub value: f64,
+    /// Dimension exponents of s, m, kg, A, K.
+    pub dim: [i8; 5],
+    /// The value as a person reads it, e.g. `2π × 25.00 kHz`.
+    pub shown: String,
+    /// The expression it was evaluated from.
+    pub expr: String,
+    /// True when `--set` replaced the file's definition.
+    pub overridden: bool,
+}
+
+/// An evolve block's results.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct NamedResult {
+    /// The block name.
+    pub block: String,
+    /// Its results.
+    pub result: EvolveResult,
+}
+
+/// One check.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct CheckRecord {
+    /// The result path.
+    pub path: String,
+    /// Line of the check in the source.
+    pub line: usize,
+    /// The value found (SI).
+    pub got: f64,
+    /// Its dimension exponents.
+    pub dim: [i8; 5],
+    /// The value as printed.
+    pub shown: String,
+    /// The condition with its numbers.
+    pub expected: String,
+    /// Whether it held.
+    pub passed: bool,
+}
+
+/// One inline value.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct InlineRecord {
+    /// The result path.
+    pub path: String,
+    /// Line in the source.
+    pub line: usize,
+    /// The value as printed, or the reason it has none.
+    pub shown: String,
+}
+
+/// A located message.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Message {
+    /// 1-based line.
+    pub line: usize,
+    /// 1-based column (characters).
+    pub column: usize,
+    /// The text.
+    pub message: String,
+}
+
+/// Parentage of a record.
+#[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq)]
+pub struct Lineage {
+    /// The parent record's `results_sha256`, when this is a re-run.
+    pub parent: Option<String>,
+    /// The parameters changed relative to the parent, as `name = EXPR`.
+    pub changes: Vec<String>,
+    /// SHA-256 of everything in the record but `volatile` and `lineage`, hex: equal inputs and
+    /// equal results give equal hashes.
+    pub results_sha256: String,
+}
+
+/// What varies between identical runs.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Volatile {
+    /// UTC date and time of the run, ISO 8601.
+    pub date: String,
+    /// `fieldbook` version.
+    pub tool_version: String,
+    /// The commit the tool was built from, if known.
+    pub commit: String,
+    /// Operating system and architecture.
+    pub platform: String,
+    /// Wall time per evolve block (s), and whether it came from the cache.
+    pub timings: Vec<Timing>,
+}
+
+/// One block's timing.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Timing {
+    /// Block name.
+    pub block: String,
+    /// Wall time (s).
+    pub seconds: f64,
+    /// Served from the cache.
+    pub cached: bool,
+}
+
+fn hex(bytes: &[u8]) -> String {
+    bytes.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+/// SHA-256 of `text`, hex.
+pub fn sha256(text: &[u8]) -> String {
+    hex(&Sha256::digest(text))
+}
+
+fn message(doc: &Document, span_start: usize, text: &str) -> Message {
+    let (line, column) = doc.source.line_col(span_start);
+    Message {
+        line,
+        column,
+        message: text.to_string(),
+    }
+}
+
+fn shown(v: &PathValue) -> String {
+    match v {
+        PathValue::Scalar(x, d) => format_quantity(*x, *d),
+        PathValue::Series { y, .. } => format!("a series of {} values", y.len()),
+        PathValue::Map { z, .. } => format!("a map of {} values", z.len()),
+    }
+}
+
+/// Assemble the record of a run. `date` is the run's UTC time in ISO 8601.
+pub fn build(
+    doc: &Document,
+    checked: &Checked<'_>,
+    outcome: &RunOutcome,
+    diags: &[Diagnostic],
+    date: String,
+) -> Record {
+    let name = std::path::Path::new(doc.source.name())
+        .file_stem()
+        .map_or("run".into(), |s| s.to_string_lossy().into_owned());
+    let parameters = checked
+        .scope
+        .params
+        .iter()
+        .filter_map(|p| {
+            let q = checked.values.get(&p.name)?;
+            Some(ParamRecord {
+                name: p.name.clone(),
+                value: q.value,
+                dim: q.dim.0,
+                shown: format_quantity(q.value, q.dim),
+                expr: p.ex.text().to_string(),
+                overridden: p.overridden.is_some(),
+            })
+        })
+        .collect();
+    let mut results = Vec::new();
+    let mut checks = Vec::new();
+    let mut timings = Vec::new();
+    for o in &outcome.outputs {
+        match o {
+            Output::Evolve {
+                name,
+                result,
+                cached,
+                seconds,
+            } => {
+                results.push(NamedResult {
+                    block: name.clone(),
+                    result: result.clone(),
+                });
+                timings.push(Timing {
+                    block: name.clone(),
+                    seconds: *seconds,
+                    cached: *cached,
+                });
+            }
+            Output::Checks(cs) => checks.extend(cs.iter().map(|c| CheckRecord {
+                path: c.path.clone(),
+                line: doc.source.line_col(c.span.start).0,
+                got: c.got,
+                dim: c.dim.0,
+                shown: format_quantity(c.got, c.dim),
+                expected: c.expected.clone(),
+                passed: c.passed,
+            })),
+            Output::Plot { .. } | Output::Table { .. } => {}
+        }
+    }
+    let inline = outcome
+        .inline
+        .iter()
+        .map(|(path, span, v)| InlineRecord {
+            path: path.clone(),
+            line: doc.source.line_col(span.start).0,
+            shown: match v {
+                Ok(v) => shown(v),
+                Err(e) => format!("({e})"),
+            },
+        })
+        .collect();
+    let warnings = diags
+        .iter()
+        .filter(|d| d.severity == Severity::Warning)
+        .map(|d| message(doc, d.span.start, &d.message))
+        .collect();
+    let errors = outcome
+        .errors
+        .iter()
+        .map(|e| message(doc, e.span.start, &e.message))
+        .collect();
+    let mut r = Record {
+        format: FORMAT.into(),
+        version: VERSION,
+        name,
+        source: SourceInfo {
+            file: doc.source.name().to_string(),
+            text: doc.source.text().to_string(),
+            sha256: sha256(doc.source.text().as_bytes()),
+        },
+        parameters,
+        results,
+        checks,
+        inline,
+        warnings,
+        errors,
+        lineage: Lineage::default(),
+        volatile: Volatile {
+            date,
+            tool_version: env!("CARGO_PKG_VERSION").into(),
+            commit: option_env!("FIELDBOOK_COMMIT").unwrap_or("unknown").into(),
+            platform: format!("{}-{}", std::env::consts::OS, std::env::consts::ARCH),
+            timings,
+        },
+    };
+    r.lineage.results_sha256 = r.content_hash();
+    r
+}
+
+impl Record {
+    /// SHA-256 over the record without `volatile` and `lineage`.
+    pub fn content_hash(&self) -> String {
+        let mut copy = self.clone();
+        copy.lineage = Lineage::default();
+        copy.volatile.date.clear();
+        copy.volatile.timings.clear();
+        copy.volatile.platform.clear();
+        copy.volatile.commit.clear();
+        copy.volatile.tool_version.clear();
+        let json = serde_json::to_vec(&copy).unwrap_or_default();
+        sha256(&json)
+    }
+}
+
+/// The current UTC time as `YYYY-MM-DDTHH:MM:SSZ` (civil-from-days conversion of H. Hinnant,
+/// "chrono-compatible low-level date algorithms", 2013, common practice).
+pub fn utc_now() -> String {
+    let secs = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_secs()) as i64;
+    iso8601(secs)
+}
+
+/// Seconds since 1970-01-01T00:00:00Z as ISO 8601 UTC.
+pub fn iso8601(secs: i64) -> String {
+    let (days, rem) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = doy - (153 * mp + 2) / 5 + 1;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 };
+    let y = yoe + era * 400 + i64::from(m <= 2);
+    format!(
+        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
+        rem / 3600,
+        rem % 3600 / 60,
+        rem % 60
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn utc_dates_follow_the_civil_calendar() {
+        // Reference instants from Python's datetime.fromtimestamp(s, timezone.utc).
+        assert_eq!(iso8601(0), "1970-01-01T00:00:00Z");
+        assert_eq!(iso8601(951_782_400), "2000-02-29T00:00:00Z");
+        assert_eq!(iso8601(1_796_215_599), "2026-12-02T12:46:39Z");
+        assert_eq!(iso8601(-1), "1969-12-31T23:59:59Z");
+    }
+}
