@@ -14,6 +14,23 @@ use fieldbook::notebook::{self, diag::Severity};
 use fieldbook::record;
 use fieldbook::summary;
 
+/// `println!` that ignores a closed stdout (e.g. `fieldbook diff a b | head`) instead of
+/// panicking: the output is a courtesy, the exit code is what matters.
+macro_rules! say {
+    ($($t:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stdout(), $($t)*);
+    }};
+}
+
+/// `print!` with the same tolerance as [`say!`].
+macro_rules! say_raw {
+    ($($t:tt)*) => {{
+        use std::io::Write as _;
+        let _ = write!(std::io::stdout(), $($t)*);
+    }};
+}
+
 /// Exit codes.
 const OK: u8 = 0;
 const CHECK_FAILED: u8 = 1;
@@ -23,6 +40,8 @@ const RUNTIME_FAILURE: u8 = 3;
 const USAGE: &str =
     "usage: fieldbook check FILE…                  validate run-files without simulating
        fieldbook run FILE… [OPTIONS]          run them and print results and checks
+       fieldbook rerun RECORD… [OPTIONS]      re-run a record's source (writes to --out, default .)
+       fieldbook diff A B [--rtol R] [--atol A]   compare two records; exit 1 when they differ
 options of run and check:
        --set NAME=EXPR      override a parameter (repeatable), e.g. --set rabi=\"2π × 300 kHz\"
 options of run:
@@ -39,6 +58,7 @@ struct Args {
     cache: Option<Option<PathBuf>>,
     out: Option<PathBuf>,
     force: bool,
+    tolerance: record::diff::Tolerance,
 }
 
 fn parse_args(args: Vec<String>) -> Result<Args, String> {
@@ -51,6 +71,7 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
         cache: None,
         out: None,
         force: false,
+        tolerance: record::diff::Tolerance::default(),
     };
     while let Some(a) = it.next() {
         if let Some(rest) = a.strip_prefix("--set") {
@@ -68,6 +89,18 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
             out.cache = Some(None);
         } else if a == "--out" {
             out.out = Some(it.next().ok_or("--out needs a folder")?.into());
+        } else if a == "--rtol" || a == "--atol" {
+            let v = it.next().ok_or_else(|| format!("{a} needs a number"))?;
+            let x: f64 = v
+                .parse()
+                .ok()
+                .filter(|x: &f64| x.is_finite() && *x >= 0.0)
+                .ok_or_else(|| format!("{a} {v}: expected a non-negative number"))?;
+            if a == "--rtol" {
+                out.tolerance.rtol = x;
+            } else {
+                out.tolerance.atol = x;
+            }
         } else if a == "--force" {
             out.force = true;
         } else if a == "--cache" {
@@ -88,14 +121,14 @@ fn main() -> ExitCode {
     let raw: Vec<String> = std::env::args().skip(1).collect();
     match raw.first().map(String::as_str) {
         Some("--version") => {
-            println!("fieldbook {}", env!("CARGO_PKG_VERSION"));
+            say!("fieldbook {}", env!("CARGO_PKG_VERSION"));
             return ExitCode::SUCCESS;
         }
         Some("--help") | Some("-h") | Some("help") => {
-            println!("{USAGE}");
+            say!("{USAGE}");
             return ExitCode::SUCCESS;
         }
-        Some("check") | Some("run") => {}
+        Some("check") | Some("run") | Some("rerun") | Some("diff") => {}
         other => {
             if let Some(c) = other {
                 eprintln!("error: unknown command `{c}`");
@@ -111,12 +144,21 @@ fn main() -> ExitCode {
             return ExitCode::from(INPUT_ERROR);
         }
     };
-    let code = args
-        .files
-        .iter()
-        .map(|f| one_file(&args, f))
-        .max()
-        .unwrap_or(OK);
+    let code = match args.command.as_str() {
+        "rerun" => args
+            .files
+            .iter()
+            .map(|f| rerun(&args, f))
+            .max()
+            .unwrap_or(OK),
+        "diff" => diff(&args),
+        _ => args
+            .files
+            .iter()
+            .map(|f| one_file(&args, f))
+            .max()
+            .unwrap_or(OK),
+    };
     ExitCode::from(code)
 }
 
@@ -129,8 +171,82 @@ fn one_file(args: &Args, path: &Path) -> u8 {
             return INPUT_ERROR;
         }
     };
+    run_source(args, &name, &bytes, &args.overrides, None)
+}
+
+/// Re-run the source embedded in a record with its earlier overrides plus the new `--set`s.
+fn rerun(args: &Args, path: &Path) -> u8 {
+    let parent = match record::io::read(path) {
+        Ok(r) => r,
+        Err(e) => {
+            eprintln!("error: {e}");
+            return INPUT_ERROR;
+        }
+    };
+    let mut overrides: Vec<(String, String)> = parent
+        .parameters
+        .iter()
+        .filter(|p| p.overridden)
+        .map(|p| (p.name.clone(), p.expr.clone()))
+        .collect();
+    overrides.extend(args.overrides.iter().cloned());
+    let changes: Vec<String> = args
+        .overrides
+        .iter()
+        .map(|(k, v)| format!("{k} = {v}"))
+        .collect();
+    say!(
+        "re-running {} (record {:.12}…){}",
+        parent.source.file,
+        parent.lineage.results_sha256,
+        if changes.is_empty() {
+            String::new()
+        } else {
+            format!(" with {}", changes.join(", "))
+        }
+    );
+    let lineage = record::Lineage {
+        parent: Some(parent.lineage.results_sha256.clone()),
+        changes,
+        results_sha256: String::new(),
+    };
+    run_source(
+        args,
+        &parent.source.file,
+        parent.source.text.as_bytes(),
+        &overrides,
+        Some(lineage),
+    )
+}
+
+/// Compare two records.
+fn diff(args: &Args) -> u8 {
+    let [a, b] = args.files.as_slice() else {
+        eprintln!("error: `diff` takes two records\n{USAGE}");
+        return INPUT_ERROR;
+    };
+    let read = |p: &PathBuf| record::io::read(p).map_err(|e| eprintln!("error: {e}"));
+    let (Ok(ra), Ok(rb)) = (read(a), read(b)) else {
+        return INPUT_ERROR;
+    };
+    let changes = record::diff::diff(&ra, &rb, args.tolerance);
+    say_raw!(
+        "{}",
+        record::diff::summary(&a.display().to_string(), &b.display().to_string(), &changes)
+    );
+    if changes.is_empty() { OK } else { CHECK_FAILED }
+}
+
+/// Check (and, for `run` and `rerun`, execute) one run-file's text.
+fn run_source(
+    args: &Args,
+    name: &str,
+    bytes: &[u8],
+    overrides: &[(String, String)],
+    lineage: Option<record::Lineage>,
+) -> u8 {
     let t0 = Instant::now();
-    let source = match notebook::load(&name, &bytes) {
+    let source = match notebook::load(name, bytes) {
         Ok(s) => s,
         Err(bad) => {
             let (src, d) = *bad;
@@ -139,7 +255,7 @@ fn one_file(args: &Args, path: &Path) -> u8 {
         }
     };
     let (doc, mut diags) = notebook::parse(source);
-    let outcome = session::check(&doc, &args.overrides);
+    let outcome = session::check(&doc, overrides);
     diags.extend(outcome.diags);
     diags.sort_by_key(|d| d.span.start);
     for d in &diags {
@@ -159,7 +275,7 @@ fn one_file(args: &Args, path: &Path) -> u8 {
     };
     if args.command == "check" {
         let warnings = diags.len();
-        println!(
+        say!(
             "{name}: ok ({} blocks, {warnings} warning(s), {:.1} ms)",
             doc.blocks().count(),
             t0.elapsed().as_secs_f64() * 1e3
@@ -169,7 +285,13 @@ fn one_file(args: &Args, path: &Path) -> u8 {
     let cache = match &args.cache {
         Some(None) => None,
         Some(Some(dir)) => Some(Cache::new(dir)),
-        None => Some(Cache::beside(path)),
+        None if lineage.is_some() => Some(Cache::new(
+            args.out
+                .clone()
+                .unwrap_or_else(|| PathBuf::from("."))
+                .join(".fieldbook-cache"),
+        )),
+        None => Some(Cache::beside(Path::new(name))),
     };
     let bar = Progress::new();
     let progress = |block: &str, done: usize, total: usize| bar.update(block, done, total);
@@ -186,14 +308,14 @@ fn one_file(args: &Args, path: &Path) -> u8 {
         .filter(|p| p.overridden.is_some())
     {
         if let Some(q) = checked.values.get(&p.name) {
-            println!(
+            say!(
                 "set {} = {} (--set, instead of the file's value)",
                 p.name,
                 fieldbook::notebook::expr::format_quantity(q.value, q.dim)
             );
         }
     }
-    print!(
+    say_raw!(
         "{}",
         summary::text(&doc, &result, t0.elapsed().as_secs_f64())
     );
@@ -201,10 +323,19 @@ fn one_file(args: &Args, path: &Path) -> u8 {
         let d = notebook::diag::Diagnostic::error(e.span.clone(), e.message.clone());
         eprint!("{}", d.render(&doc.source));
     }
-    if let Some(dir) = &args.out {
-        let rec = record::build(&doc, &checked, &result, &diags, record::utc_now());
+    // A re-run writes into the current folder unless told otherwise.
+    let out_dir = args
+        .out
+        .clone()
+        .or_else(|| lineage.as_ref().map(|_| PathBuf::from(".")));
+    if let Some(dir) = &out_dir {
+        let mut rec = record::build(&doc, &checked, &result, &diags, record::utc_now());
+        if let Some(l) = &lineage {
+            rec.lineage.parent = l.parent.clone();
+            rec.lineage.changes = l.changes.clone();
+        }
         match record::io::write(dir, &rec, args.force) {
-            Ok(p) => println!("record: {}", p.display()),
+            Ok(p) => say!("record: {}", p.display()),
             Err(e) => {
                 eprintln!("error: {e}");
                 return INPUT_ERROR;

@@ -22,7 +22,7 @@ pub enum RecordError {
     },
     /// An existing record belongs to another input.
     #[error(
-        "{path} holds the record of a different input (source sha256 {existing:.12}…, this run {new:.12}…); pass --force to replace it, or choose another --out folder"
+        "{path} holds the record of a different input (other source text or other --set values; source sha256 {existing:.12}…, this run {new:.12}…); pass --force to replace it, or choose another --out folder"
     )]
     Different {
         /// The existing record.
@@ -84,7 +84,7 @@ pub fn write(dir: &Path, record: &Record, force: bool) -> Result<PathBuf, Record
     if !force
         && path.exists()
         && let Ok(existing) = read(&path)
-        && existing.source.sha256 != record.source.sha256
+        && input_of(&existing) != input_of(record)
     {
         return Err(RecordError::Different {
             path,
@@ -99,6 +99,17 @@ pub fn write(dir: &Path, record: &Record, force: bool) -> Result<PathBuf, Record
     json.push(b'\n');
     write_atomic(&path, &json)?;
     Ok(path)
+}
+
+/// What makes two runs the same input: the source text and the `--set` overrides.
+fn input_of(r: &Record) -> (&str, Vec<(&str, &str)>) {
+    let sets = r
+        .parameters
+        .iter()
+        .filter(|p| p.overridden)
+        .map(|p| (p.name.as_str(), p.expr.as_str()))
+        .collect();
+    (r.source.sha256.as_str(), sets)
 }
 
 /// Replace `path` by `bytes` so that readers see either the old or the new file, never a part.
