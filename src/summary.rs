@@ -59,7 +59,7 @@ pub fn text(doc: &Document, outcome: &RunOutcome, seconds: f64) -> String {
     let mut s = String::new();
     let name = doc.source.name();
     let mut checks = (0, 0);
-    for o in &outcome.outputs {
+    for (_, o) in &outcome.outputs {
         match o {
             Output::Evolve {
                 name,
@@ -92,7 +92,7 @@ pub fn text(doc: &Document, outcome: &RunOutcome, seconds: f64) -> String {
                     }
                 }
             }
-            Output::Plot { title, series } => {
+            Output::Plot { title, series, .. } => {
                 let _ = writeln!(s, "plot: {title}");
                 for (label, v) in series.iter().skip(1) {
                     let _ = writeln!(s, "  {label}: {}", value(v));

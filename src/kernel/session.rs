@@ -1070,8 +1070,14 @@ pub enum Output {
     Plot {
         /// Title or a generated one.
         title: String,
-        /// Series: label and value.
+        /// Series: label and value; the first is the x axis (for a heat map: x, y, z).
         series: Vec<(String, PathValue)>,
+        /// Logarithmic x axis.
+        log_x: bool,
+        /// Logarithmic y axis.
+        log_y: bool,
+        /// A heat map (`z` given) rather than curves.
+        map: bool,
     },
     /// Table columns.
     Table {
@@ -1096,8 +1102,8 @@ pub struct RunError {
 /// Everything a run produced.
 #[derive(Clone, Debug, Default)]
 pub struct RunOutcome {
-    /// Cell outputs, in order.
-    pub outputs: Vec<Output>,
+    /// Cell outputs in order, each with the index of its block among the document's blocks.
+    pub outputs: Vec<(usize, Output)>,
     /// Inline values: their path text, span and value.
     pub inline: Vec<(String, Span, Result<PathValue, String>)>,
     /// Runtime failures.
@@ -1109,7 +1115,7 @@ impl RunOutcome {
     pub fn failed_checks(&self) -> usize {
         self.outputs
             .iter()
-            .map(|o| match o {
+            .map(|(_, o)| match o {
                 Output::Checks(c) => c.iter().filter(|r| !r.passed).count(),
                 _ => 0,
             })
@@ -1140,12 +1146,15 @@ pub fn run(c: &Checked<'_>, opts: &RunOptions<'_>) -> RunOutcome {
                 let t0 = std::time::Instant::now();
                 if let Some(r) = opts.cache.and_then(|k| k.load(&plan.key)) {
                     results.insert(plan.name.clone(), r.clone());
-                    out.outputs.push(Output::Evolve {
-                        name: plan.name.clone(),
-                        result: r,
-                        cached: true,
-                        seconds: t0.elapsed().as_secs_f64(),
-                    });
+                    out.outputs.push((
+                        plan.block,
+                        Output::Evolve {
+                            name: plan.name.clone(),
+                            result: r,
+                            cached: true,
+                            seconds: t0.elapsed().as_secs_f64(),
+                        },
+                    ));
                     continue;
                 }
                 match execute(c, plan, opts) {
@@ -1154,12 +1163,15 @@ pub fn run(c: &Checked<'_>, opts: &RunOptions<'_>) -> RunOutcome {
                             k.store(&plan.key, &r);
                         }
                         results.insert(plan.name.clone(), r.clone());
-                        out.outputs.push(Output::Evolve {
-                            name: plan.name.clone(),
-                            result: r,
-                            cached: false,
-                            seconds: t0.elapsed().as_secs_f64(),
-                        });
+                        out.outputs.push((
+                            plan.block,
+                            Output::Evolve {
+                                name: plan.name.clone(),
+                                result: r,
+                                cached: false,
+                                seconds: t0.elapsed().as_secs_f64(),
+                            },
+                        ));
                     }
                     Err(message) => {
                         failed.insert(plan.name.clone());
@@ -1193,7 +1205,16 @@ pub fn run(c: &Checked<'_>, opts: &RunOptions<'_>) -> RunOutcome {
                         p.x.text
                     )
                 });
-                out.outputs.push(Output::Plot { title, series });
+                out.outputs.push((
+                    *i,
+                    Output::Plot {
+                        title,
+                        series,
+                        log_x: p.log_x,
+                        log_y: p.log_y,
+                        map: p.z.is_some(),
+                    },
+                ));
             }
             Step::Table(i) => {
                 let Some(Block::Table(t)) = block_at(c.doc, *i) else {
@@ -1209,10 +1230,13 @@ pub fn run(c: &Checked<'_>, opts: &RunOptions<'_>) -> RunOutcome {
                             .map(|v| (p.text.clone(), v))
                     })
                     .collect();
-                out.outputs.push(Output::Table {
-                    title: t.title.clone(),
-                    columns,
-                });
+                out.outputs.push((
+                    *i,
+                    Output::Table {
+                        title: t.title.clone(),
+                        columns,
+                    },
+                ));
             }
             Step::Check(i) => {
                 let Some(Block::Check(k)) = block_at(c.doc, *i) else {
@@ -1234,7 +1258,7 @@ pub fn run(c: &Checked<'_>, opts: &RunOptions<'_>) -> RunOutcome {
                         }),
                     }
                 }
-                out.outputs.push(Output::Checks(rs));
+                out.outputs.push((*i, Output::Checks(rs)));
             }
         }
     }

@@ -71,7 +71,7 @@ pub fn line_diff(a: &str, b: &str) -> Vec<(char, usize, String)> {
         if i < n && j < m && x[i] == y[j] {
             i += 1;
             j += 1;
-        } else if j < m && (i == n || l[i * (m + 1) + j + 1] >= l[(i + 1) * (m + 1) + j]) {
+        } else if j < m && (i == n || l[i * (m + 1) + j + 1] > l[(i + 1) * (m + 1) + j]) {
             out.push(('+', j + 1, y[j].to_string()));
             j += 1;
         } else {

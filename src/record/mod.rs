@@ -31,6 +31,8 @@ pub struct Record {
     pub name: String,
     /// The source text and its hash.
     pub source: SourceInfo,
+    /// The document in order: prose and blocks, with what each block showed.
+    pub cells: Vec<CellRecord>,
     /// Every parameter at its resolved value, in evaluation order.
     pub parameters: Vec<ParamRecord>,
     /// Results of every evolve block that ran, in order.
@@ -58,6 +60,79 @@ pub struct SourceInfo {
     pub text: String,
     /// SHA-256 of the text, hex.
     pub sha256: String,
+}
+
+/// One cell of the document.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct CellRecord {
+    /// `prose`, or the block kind.
+    pub kind: String,
+    /// The block's name, if it has one.
+    pub name: Option<String>,
+    /// First line in the source (1-based).
+    pub line: usize,
+    /// The Markdown of the prose, or the block's whole text with its fences.
+    pub text: String,
+    /// What the block showed, for `plot`, `table`, `check` and `evolve` blocks that ran.
+    pub output: Option<CellOutput>,
+}
+
+/// A labelled series of numbers with its dimension.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Column {
+    /// The result path it came from.
+    pub label: String,
+    /// Dimension exponents.
+    pub dim: [i8; 5],
+    /// Values (SI).
+    pub values: Vec<f64>,
+}
+
+/// What a block showed.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[serde(tag = "type", rename_all = "snake_case")]
+pub enum CellOutput {
+    /// Curves over a common x axis.
+    Curves {
+        /// Title.
+        title: String,
+        /// The x axis.
+        x: Column,
+        /// The curves, each as long as `x`.
+        curves: Vec<Column>,
+        /// Logarithmic x axis.
+        log_x: bool,
+        /// Logarithmic y axis.
+        log_y: bool,
+    },
+    /// A heat map over two sweep axes: `z.values[i * y.len() + j]` is at (x[i], y[j]).
+    Map {
+        /// Title.
+        title: String,
+        /// Horizontal axis.
+        x: Column,
+        /// Vertical axis.
+        y: Column,
+        /// Colour values.
+        z: Column,
+    },
+    /// A table of columns (scalars give one-element columns).
+    Table {
+        /// Title.
+        title: Option<String>,
+        /// Columns.
+        columns: Vec<Column>,
+    },
+    /// Checks of this block: indices into the record's `checks`.
+    Checks {
+        /// Indices.
+        indices: Vec<usize>,
+    },
+    /// An evolve block's results: the name under `results`.
+    Results {
+        /// Block name.
+        block: String,
+    },
 }
 
 /// One resolved parameter.
@@ -191,6 +266,167 @@ fn shown(v: &PathValue) -> String {
     }
 }
 
+fn column(label: &str, v: &PathValue) -> Option<(Column, Option<Column>)> {
+    match v {
+        PathValue::Scalar(x, d) => Some((
+            Column {
+                label: label.into(),
+                dim: d.0,
+                values: vec![*x],
+            },
+            None,
+        )),
+        PathValue::Series {
+            axis,
+            x,
+            x_dim,
+            y,
+            y_dim,
+        } => Some((
+            Column {
+                label: label.into(),
+                dim: y_dim.0,
+                values: y.clone(),
+            },
+            Some(Column {
+                label: axis.clone(),
+                dim: x_dim.0,
+                values: x.clone(),
+            }),
+        )),
+        PathValue::Map { .. } => None,
+    }
+}
+
+/// A plot's data as a record output: curves over x, or a heat map oriented as the plot asks.
+fn plot_output(
+    title: &str,
+    series: &[(String, PathValue)],
+    log_x: bool,
+    log_y: bool,
+    map: bool,
+) -> Option<CellOutput> {
+    let (x_label, x_value) = series.first()?;
+    if map {
+        let (_, PathValue::Map { axes, z, dim }) = series.last()? else {
+            return None;
+        };
+        let (z_label, _) = series.last()?;
+        let x_name = match x_value {
+            PathValue::Series { axis, .. } => axis.clone(),
+            _ => return None,
+        };
+        let (nx, ny) = (axes[0].1.len(), axes[1].1.len());
+        // Stored outer-axis-major; transpose when the plot puts the inner axis along x.
+        let (xa, ya, zs) = if axes[0].0 == x_name {
+            (&axes[0], &axes[1], z.clone())
+        } else {
+            let mut t = vec![0.0; z.len()];
+            for i in 0..nx {
+                for j in 0..ny {
+                    t[j * nx + i] = z[i * ny + j];
+                }
+            }
+            (&axes[1], &axes[0], t)
+        };
+        let col = |a: &(String, Vec<f64>, crate::notebook::expr::Dim)| Column {
+            label: a.0.clone(),
+            dim: a.2.0,
+            values: a.1.clone(),
+        };
+        return Some(CellOutput::Map {
+            title: title.into(),
+            x: Column {
+                label: x_label.clone(),
+                ..col(xa)
+            },
+            y: col(ya),
+            z: Column {
+                label: z_label.clone(),
+                dim: dim.0,
+                values: zs,
+            },
+        });
+    }
+    let x = match x_value {
+        PathValue::Series { y, y_dim, .. } => Column {
+            label: x_label.clone(),
+            dim: y_dim.0,
+            values: y.clone(),
+        },
+        _ => return None,
+    };
+    let curves = series[1..]
+        .iter()
+        .filter_map(|(l, v)| column(l, v).map(|c| c.0))
+        .collect();
+    Some(CellOutput::Curves {
+        title: title.into(),
+        x,
+        curves,
+        log_x,
+        log_y,
+    })
+}
+
+/// The document's cells with the outputs of the blocks that ran.
+fn cells(doc: &Document, outcome: &RunOutcome) -> Vec<CellRecord> {
+    let mut out = Vec::new();
+    let mut block = 0;
+    let mut check_base = 0;
+    for cell in &doc.cells {
+        match cell {
+            crate::notebook::DocCell::Prose(span) => out.push(CellRecord {
+                kind: "prose".into(),
+                name: None,
+                line: doc.source.line_col(span.start).0,
+                text: doc.source.text()[span.clone()].to_string(),
+                output: None,
+            }),
+            crate::notebook::DocCell::Block(b) => {
+                let output =
+                    outcome
+                        .outputs
+                        .iter()
+                        .find(|(i, _)| *i == block)
+                        .and_then(|(_, o)| match o {
+                            Output::Evolve { name, .. } => Some(CellOutput::Results {
+                                block: name.clone(),
+                            }),
+                            Output::Plot {
+                                title,
+                                series,
+                                log_x,
+                                log_y,
+                                map,
+                            } => plot_output(title, series, *log_x, *log_y, *map),
+                            Output::Table { title, columns } => Some(CellOutput::Table {
+                                title: title.clone(),
+                                columns: columns
+                                    .iter()
+                                    .filter_map(|(l, v)| column(l, v).map(|c| c.0))
+                                    .collect(),
+                            }),
+                            Output::Checks(cs) => {
+                                let indices = (check_base..check_base + cs.len()).collect();
+                                check_base += cs.len();
+                                Some(CellOutput::Checks { indices })
+                            }
+                        });
+                out.push(CellRecord {
+                    kind: b.raw.kind.clone(),
+                    name: b.raw.name.as_ref().map(|(n, _)| n.clone()),
+                    line: doc.source.line_col(b.raw.span.start).0,
+                    text: doc.source.text()[b.raw.span.clone()].to_string(),
+                    output,
+                });
+                block += 1;
+            }
+        }
+    }
+    out
+}
+
 /// Assemble the record of a run. `date` is the run's UTC time in ISO 8601.
 pub fn build(
     doc: &Document,
@@ -221,7 +457,7 @@ pub fn build(
     let mut results = Vec::new();
     let mut checks = Vec::new();
     let mut timings = Vec::new();
-    for o in &outcome.outputs {
+    for (_, o) in &outcome.outputs {
         match o {
             Output::Evolve {
                 name,
@@ -273,6 +509,7 @@ pub fn build(
         .iter()
         .map(|e| message(doc, e.span.start, &e.message))
         .collect();
+    let cells = cells(doc, outcome);
     let mut r = Record {
         format: FORMAT.into(),
         version: VERSION,
@@ -282,6 +519,7 @@ pub fn build(
             text: doc.source.text().to_string(),
             sha256: sha256(doc.source.text().as_bytes()),
         },
+        cells,
         parameters,
         results,
         checks,
