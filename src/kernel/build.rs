@@ -23,6 +23,9 @@ use crate::notebook::source::Span;
 pub struct Values {
     map: HashMap<String, Quantity>,
     failed: HashSet<String>,
+    /// Run-file span of the bare Hz token behind a parameter's value, where it is the
+    /// parameter's own text, so that the 2π warning can point at the definition.
+    hz_at: HashMap<String, Span>,
 }
 
 impl expr::Env for Values {
@@ -78,6 +81,11 @@ pub fn eval_params(
                 }
                 if let Some((_, dx)) = shift.filter(|(n, _)| *n == p.name) {
                     q.value += dx;
+                }
+                if let Some(s) = &q.bare_hz
+                    && p.ex.text().get(s.clone()).is_some_and(|t| t.ends_with("Hz"))
+                {
+                    v.hz_at.insert(p.name.clone(), p.ex.at(s));
                 }
                 v.map.insert(p.name.clone(), q);
             }
@@ -146,17 +154,19 @@ impl Builder<'_> {
             && dim == Dim::FREQUENCY
             && let Some((span, msg)) = expr::bare_hz_warning(&q)
         {
-            let at = if ex
-                .text()
-                .get(span.clone())
-                .is_some_and(|t| t.ends_with("Hz"))
-            {
-                ex.at(&span)
-            } else {
-                ex.span.clone()
+            // The Hz token is in this expression, or in a parameter it uses.
+            let via = ex.expr.references().into_iter().find_map(|(n, _)| {
+                let from = self.values.get(&n)?;
+                (from.bare_hz == q.bare_hz).then(|| self.values.hz_at.get(&n).map(|s| (n, s.clone())))?
+            });
+            let (at, msg) = match via {
+                Some((name, s)) => (s, format!("{what} (through `{name}`): {msg}")),
+                None if ex.text().get(span.clone()).is_some_and(|t| t.ends_with("Hz")) => {
+                    (ex.at(&span), format!("{what}: {msg}"))
+                }
+                None => (ex.span.clone(), format!("{what}: {msg}")),
             };
-            self.diags
-                .push(Diagnostic::warning(at, format!("{what}: {msg}")));
+            self.diags.push(Diagnostic::warning(at, msg));
         }
         Some(q.value)
     }
