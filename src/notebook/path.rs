@@ -189,7 +189,7 @@ pub fn parse_path(s: &str) -> Result<ResultPath, PathError> {
     let mut at = Vec::new();
     if let Some(from) = at_part {
         let mut pos = from;
-        for sel in s[from..].split(',') {
+        for sel in split_top(&s[from..]) {
             let Some(eq) = sel.find('=') else {
                 return Err(err(
                     pos..pos + sel.len(),
@@ -329,6 +329,24 @@ pub fn parse_path(s: &str) -> Result<ResultPath, PathError> {
     })
 }
 
+/// Split at commas outside parentheses, so that `at a = min(x, y), b = 2` has two selections.
+fn split_top(s: &str) -> Vec<&str> {
+    let (mut depth, mut start, mut out) = (0i32, 0, Vec::new());
+    for (i, c) in s.char_indices() {
+        match c {
+            '(' => depth += 1,
+            ')' => depth -= 1,
+            ',' if depth == 0 => {
+                out.push(&s[start..i]);
+                start = i + 1;
+            }
+            _ => {}
+        }
+    }
+    out.push(&s[start..]);
+    out
+}
+
 /// Byte offset of `word` standing alone (surrounded by spaces) in `s`.
 fn find_word(s: &str, word: &str) -> Option<usize> {
     let pat = format!(" {word} ");
@@ -395,6 +413,8 @@ mod tests {
         );
         assert!(parse_path("r.final.population(e).w").is_err());
         assert!(parse_path("nonsense").is_err());
+        let p = parse_path("r.final.norm at a = min(1 s, 2 s), b = 3").unwrap();
+        assert_eq!((p.at[0].2.as_str(), p.at[1].2.as_str()), ("min(1 s, 2 s)", "3"));
         assert!(parse_path("r.final.population(e) at delta").is_err());
     }
 }
