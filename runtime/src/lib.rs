@@ -35,6 +35,7 @@
 // would hide the indices the physics is written in.
 #![allow(clippy::needless_range_loop)]
 
+pub mod angular;
 pub mod atom;
 pub mod envelope;
 pub mod error;
