@@ -216,7 +216,9 @@ fn a_cycle_frequency_without_2pi_warns_with_both_readings() {
     let t = text(&o);
     assert_eq!(o.status.code(), Some(0), "{t}");
     assert!(
-        t.contains("warning: the Rabi frequency (through `rabi`): `25 kHz` is read as 2.5×10⁴ rad/s"),
+        t.contains(
+            "warning: the Rabi frequency (through `rabi`): `25 kHz` is read as 2.5×10⁴ rad/s"
+        ),
         "{t}"
     );
     assert!(t.contains("write `2π × 25 kHz`"), "{t}");

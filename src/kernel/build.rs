@@ -83,7 +83,10 @@ pub fn eval_params(
                     q.value += dx;
                 }
                 if let Some(s) = &q.bare_hz
-                    && p.ex.text().get(s.clone()).is_some_and(|t| t.ends_with("Hz"))
+                    && p.ex
+                        .text()
+                        .get(s.clone())
+                        .is_some_and(|t| t.ends_with("Hz"))
                 {
                     v.hz_at.insert(p.name.clone(), p.ex.at(s));
                 }
@@ -157,11 +160,16 @@ impl Builder<'_> {
             // The Hz token is in this expression, or in a parameter it uses.
             let via = ex.expr.references().into_iter().find_map(|(n, _)| {
                 let from = self.values.get(&n)?;
-                (from.bare_hz == q.bare_hz).then(|| self.values.hz_at.get(&n).map(|s| (n, s.clone())))?
+                (from.bare_hz == q.bare_hz)
+                    .then(|| self.values.hz_at.get(&n).map(|s| (n, s.clone())))?
             });
             let (at, msg) = match via {
                 Some((name, s)) => (s, format!("{what} (through `{name}`): {msg}")),
-                None if ex.text().get(span.clone()).is_some_and(|t| t.ends_with("Hz")) => {
+                None if ex
+                    .text()
+                    .get(span.clone())
+                    .is_some_and(|t| t.ends_with("Hz")) =>
+                {
                     (ex.at(&span), format!("{what}: {msg}"))
                 }
                 None => (ex.span.clone(), format!("{what}: {msg}")),

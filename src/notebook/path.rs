@@ -414,7 +414,10 @@ mod tests {
         assert!(parse_path("r.final.population(e).w").is_err());
         assert!(parse_path("nonsense").is_err());
         let p = parse_path("r.final.norm at a = min(1 s, 2 s), b = 3").unwrap();
-        assert_eq!((p.at[0].2.as_str(), p.at[1].2.as_str()), ("min(1 s, 2 s)", "3"));
+        assert_eq!(
+            (p.at[0].2.as_str(), p.at[1].2.as_str()),
+            ("min(1 s, 2 s)", "3")
+        );
         assert!(parse_path("r.final.population(e) at delta").is_err());
     }
 }
