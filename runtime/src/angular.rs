@@ -347,6 +347,15 @@ pub fn wigner_6j(
     )
 }
 
+/// The relative strength S_{FF'} = (2F'+1)(2J+1) {J J' 1; F' F I}² of the hyperfine component
+/// F → F' of a fine-structure line J → J' with nuclear spin I (arguments doubled). For each F the
+/// S_{FF'} sum to 1 over F'. Definition of D. A. Steck's alkali D-line data notes (e.g.
+/// *Rubidium 87 D Line Data*, revision 2.2, 2021, eq. 41).
+pub fn hyperfine_strength(two_j: i32, two_jp: i32, two_i: i32, two_f: i32, two_fp: i32) -> f64 {
+    let w = wigner_6j(two_j, two_jp, 2, two_fp, two_f, two_i);
+    f64::from((two_fp + 1) * (two_j + 1)) * w * w
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -367,6 +376,35 @@ mod tests {
         assert_eq!(wigner_3j(2, 2, 2, 2, 2, 0), 0.0);
         assert_eq!(wigner_3j(2, 2, 6, 0, 0, 0), 0.0);
         assert_eq!(wigner_6j(2, 2, 6, 2, 2, 2), 0.0);
+    }
+
+    /// The ⁸⁷Rb D2 line (J = 1/2 → J' = 3/2, I = 3/2): the relative hyperfine strengths of
+    /// Steck, *Rubidium 87 D Line Data* (rev. 2.2, 2021), its table of relative hyperfine
+    /// transition strength factors: S₂₃ = 7/10, S₂₂ = 1/4,
+    /// S₂₁ = 1/20, S₁₂ = 5/12, S₁₁ = 5/12, S₁₀ = 1/6 (values recalled from that table).
+    #[test]
+    fn rb87_d2_hyperfine_strengths() {
+        let s = |f: i32, fp: i32| hyperfine_strength(1, 3, 3, 2 * f, 2 * fp);
+        let table = [
+            (2, 3, 0.7),
+            (2, 2, 0.25),
+            (2, 1, 0.05),
+            (1, 2, 5.0 / 12.0),
+            (1, 1, 5.0 / 12.0),
+            (1, 0, 1.0 / 6.0),
+        ];
+        for (f, fp, want) in table {
+            assert!((s(f, fp) - want).abs() < 1e-15, "S_{f}{fp} = {}", s(f, fp));
+        }
+        // Forbidden ΔF = 2 component, and the D1 sum rule for ¹³³Cs (I = 7/2).
+        assert_eq!(s(2, 0), 0.0);
+        for two_f in [6, 8] {
+            let sum: f64 = [6, 8]
+                .iter()
+                .map(|&fp| hyperfine_strength(1, 1, 7, two_f, fp))
+                .sum();
+            assert!((sum - 1.0).abs() < 1e-14);
+        }
     }
 
     #[test]
