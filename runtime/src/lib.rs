@@ -50,6 +50,7 @@ pub mod sequence;
 pub mod solve;
 pub mod state;
 pub mod sweep;
+pub mod zeeman;
 
 /// The names most scenarios need.
 pub mod prelude {

@@ -1,0 +1,274 @@
+//! Hyperfine structure in a magnetic field: the magnetic-dipole and electric-quadrupole
+//! hyperfine Hamiltonian plus the Zeeman Hamiltonian of a fine-structure level J with nuclear
+//! spin I, diagonalised in the uncoupled basis |m_J, m_I⟩ for any field, and the Breit–Rabi
+//! closed form for J = 1/2.
+//!
+//! Energies are angular frequencies (rad/s, E/ħ) like every level energy of the runtime; fields
+//! in tesla. Angular momenta are doubled (2J, 2I, 2m) as in [`crate::angular`].
+//!
+//! The Hamiltonian (D. A. Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, eqs. 16 and 30):
+//!
+//! ```text
+//! H/ħ = A I·J + B [3(I·J)² + (3/2)(I·J) − I(I+1)J(J+1)] / [2I(2I−1)J(2J−1)]
+//!       + (μ_B/ħ)(g_J J_z + g_I I_z) B_z
+//! ```
+//!
+//! with the quadrupole term present only for I ≥ 1 and J ≥ 1.
+
+use nalgebra::DMatrix;
+
+use crate::error::Error;
+use crate::field::HBAR;
+
+/// Bohr magneton μ_B (J/T), CODATA 2018.
+pub const BOHR_MAGNETON: f64 = 9.274_010_078_3e-24;
+
+/// The constants of one hyperfine manifold J ⊗ I.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Hyperfine {
+    /// 2J.
+    pub two_j: i32,
+    /// 2I.
+    pub two_i: i32,
+    /// Magnetic-dipole constant A (rad/s).
+    pub a: f64,
+    /// Electric-quadrupole constant B (rad/s); ignored unless I ≥ 1 and J ≥ 1.
+    pub b: f64,
+    /// Electronic g-factor g_J.
+    pub g_j: f64,
+    /// Nuclear g-factor g_I (in units of μ_B, Steck's sign convention).
+    pub g_i: f64,
+}
+
+/// One eigenstate of the hyperfine + Zeeman Hamiltonian.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Sublevel {
+    /// Energy E/ħ (rad/s), relative to the hyperfine centroid.
+    pub energy: f64,
+    /// 2(m_J + m_I), conserved along the field.
+    pub two_m: i32,
+    /// Amplitudes on the uncoupled basis, ordered as [`Hyperfine::basis`].
+    pub amplitudes: Vec<f64>,
+}
+
+impl Hyperfine {
+    /// The uncoupled basis (2m_J, 2m_I), m_J outer, both descending.
+    pub fn basis(&self) -> Vec<(i32, i32)> {
+        let mut v = Vec::new();
+        for mj in (-self.two_j..=self.two_j).rev().step_by(2) {
+            for mi in (-self.two_i..=self.two_i).rev().step_by(2) {
+                v.push((mj, mi));
+            }
+        }
+        v
+    }
+
+    /// H/ħ (rad/s) in the uncoupled basis at field `b_field` (T) along the quantisation axis.
+    pub fn hamiltonian(&self, b_field: f64) -> DMatrix<f64> {
+        let basis = self.basis();
+        let n = basis.len();
+        let (j, i) = (f64::from(self.two_j) / 2.0, f64::from(self.two_i) / 2.0);
+        // I·J in the uncoupled basis: I_z J_z + (I₊J₋ + I₋J₊)/2.
+        let mut ij = DMatrix::<f64>::zeros(n, n);
+        let ladder = |jj: f64, m: f64| (jj * (jj + 1.0) - m * (m + 1.0)).max(0.0).sqrt();
+        for (c, &(mj, mi)) in basis.iter().enumerate() {
+            let (mjf, mif) = (f64::from(mj) / 2.0, f64::from(mi) / 2.0);
+            ij[(c, c)] += mjf * mif;
+            // I₊J₋ |mJ, mI⟩ = c₊(I, mI) c₋(J, mJ) |mJ − 1, mI + 1⟩.
+            if let Some(r) = basis.iter().position(|&x| x == (mj - 2, mi + 2)) {
+                ij[(r, c)] += 0.5 * ladder(i, mif) * ladder(j, mjf - 1.0);
+            }
+            if let Some(r) = basis.iter().position(|&x| x == (mj + 2, mi - 2)) {
+                ij[(r, c)] += 0.5 * ladder(i, mif - 1.0) * ladder(j, mjf);
+            }
+        }
+        let mut h = &ij * self.a;
+        if self.two_i >= 2 && self.two_j >= 2 && self.b != 0.0 {
+            let id = DMatrix::<f64>::identity(n, n);
+            let q = (&ij * &ij) * 3.0 + &ij * 1.5 - id * (i * (i + 1.0) * j * (j + 1.0));
+            h += q * (self.b / (2.0 * i * (2.0 * i - 1.0) * j * (2.0 * j - 1.0)));
+        }
+        let mu = BOHR_MAGNETON / HBAR * b_field;
+        for (c, &(mj, mi)) in basis.iter().enumerate() {
+            h[(c, c)] += mu * (self.g_j * f64::from(mj) + self.g_i * f64::from(mi)) / 2.0;
+        }
+        h
+    }
+
+    /// Every sublevel at field `b_field` (T), sorted by energy.
+    pub fn sublevels(&self, b_field: f64) -> Result<Vec<Sublevel>, Error> {
+        if self.two_j < 0
+            || self.two_i < 0
+            || !b_field.is_finite()
+            || !self.a.is_finite()
+            || !self.b.is_finite()
+        {
+            return Err(Error::OutOfRange {
+                what: "the hyperfine manifold".into(),
+                value: b_field,
+                hint: "J, I ≥ 0 and finite A, B and field",
+            });
+        }
+        let basis = self.basis();
+        let h = self.hamiltonian(b_field);
+        // H conserves m = m_J + m_I: diagonalise each m block on its own, so that every
+        // eigenstate has a definite m even where levels of different m cross.
+        let mut out = Vec::with_capacity(basis.len());
+        for two_m in (-(self.two_j + self.two_i)..=self.two_j + self.two_i).step_by(2) {
+            let idx: Vec<usize> = (0..basis.len())
+                .filter(|&k| basis[k].0 + basis[k].1 == two_m)
+                .collect();
+            let block = DMatrix::from_fn(idx.len(), idx.len(), |r, c| h[(idx[r], idx[c])]);
+            let eig = block.symmetric_eigen();
+            for k in 0..idx.len() {
+                let mut amplitudes = vec![0.0; basis.len()];
+                for (r, &row) in idx.iter().enumerate() {
+                    amplitudes[row] = eig.eigenvectors[(r, k)];
+                }
+                out.push(Sublevel {
+                    energy: eig.eigenvalues[k],
+                    two_m,
+                    amplitudes,
+                });
+            }
+        }
+        out.sort_by(|a, b| a.energy.total_cmp(&b.energy));
+        Ok(out)
+    }
+
+    /// The Breit–Rabi energies (rad/s) of the F = I ± 1/2 sublevel with 2m_F = `two_m` for
+    /// J = 1/2 (Breit & Rabi, Phys. Rev. 38, 2082 (1931); Steck eq. 31):
+    /// E = −ΔE/(2(2I+1)) + g_I μ_B m B ± (ΔE/2) √(1 + 4mx/(2I+1) + x²), x = (g_J − g_I)μ_B B/ΔE,
+    /// with ΔE = A(I + 1/2). `upper` picks F = I + 1/2. For the stretched state m = ±(I + 1/2)
+    /// the root is taken with its sign, 1 ± x, so the formula stays exact through the crossing.
+    pub fn breit_rabi(&self, b_field: f64, two_m: i32, upper: bool) -> Option<f64> {
+        if self.two_j != 1 {
+            return None;
+        }
+        let i = f64::from(self.two_i) / 2.0;
+        let m = f64::from(two_m) / 2.0;
+        let de = self.a * (i + 0.5);
+        let mu = BOHR_MAGNETON / HBAR * b_field;
+        let x = (self.g_j - self.g_i) * mu / de;
+        let base = -de / (2.0 * (2.0 * i + 1.0)) + self.g_i * mu * m;
+        if (m.abs() - (i + 0.5)).abs() < 1e-12 {
+            let s = m.signum();
+            return Some(base + de / 2.0 * (1.0 + s * x));
+        }
+        let root = (1.0 + 4.0 * m * x / (2.0 * i + 1.0) + x * x).sqrt();
+        Some(
+            base + if upper {
+                de / 2.0 * root
+            } else {
+                -de / 2.0 * root
+            },
+        )
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::f64::consts::TAU;
+
+    /// ⁸⁷Rb 5²S₁/₂: A = h × 3.417 341 305 452 15 GHz, g_J = 2.002 331 13, g_I = −0.000 995 141 4
+    /// (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, tables 3 and 4; recalled from there).
+    fn rb87_ground() -> Hyperfine {
+        Hyperfine {
+            two_j: 1,
+            two_i: 3,
+            a: TAU * 3.417_341_305_452_15e9,
+            b: 0.0,
+            g_j: 2.002_331_13,
+            g_i: -0.000_995_141_4,
+        }
+    }
+
+    #[test]
+    fn zero_field_splitting_is_a_times_i_plus_half() {
+        let s = rb87_ground().sublevels(0.0).unwrap();
+        assert_eq!(s.len(), 8);
+        let split = s[7].energy - s[0].energy;
+        assert!(
+            (split / (TAU * 6.834_682_610_904_29e9) - 1.0).abs() < 1e-12,
+            "{}",
+            split / TAU
+        );
+    }
+
+    /// The full diagonalisation reproduces Breit–Rabi for J = 1/2 at fields from 0.1 G to 1 T,
+    /// through the level crossings (relative 1e-10 of the hyperfine splitting).
+    #[test]
+    fn diagonalisation_matches_breit_rabi() {
+        let h = rb87_ground();
+        let de = h.a * 2.0;
+        for b in [1e-5, 1e-3, 0.05, 0.2, 1.0] {
+            let levels = h.sublevels(b).unwrap();
+            for two_m in (-4i32..=4).step_by(2) {
+                let mut want: Vec<f64> = [true, false]
+                    .iter()
+                    .filter(|&&up| up || two_m.abs() < 4)
+                    .filter_map(|&up| h.breit_rabi(b, two_m, up))
+                    .collect();
+                want.sort_by(f64::total_cmp);
+                let mut got: Vec<f64> = levels
+                    .iter()
+                    .filter(|l| l.two_m == two_m)
+                    .map(|l| l.energy)
+                    .collect();
+                got.sort_by(f64::total_cmp);
+                assert_eq!(got.len(), want.len(), "B = {b}, 2m = {two_m}");
+                for (g, w) in got.iter().zip(&want) {
+                    assert!(
+                        ((g - w) / de).abs() < 1e-10,
+                        "B = {b} T, 2m = {two_m}: {g} vs {w}"
+                    );
+                }
+            }
+        }
+    }
+
+    /// At weak field the F = 2 sublevels split linearly with g_F ≈ g_J/4 (Landé, neglecting g_I:
+    /// g_F = g_J [F(F+1) − I(I+1) + J(J+1)]/(2F(F+1)) = g_J/4 for F = 2), to the size of the
+    /// neglected nuclear term and the quadratic shift.
+    #[test]
+    fn weak_field_is_linear_with_lande_g() {
+        let h = rb87_ground();
+        let b = 1e-7;
+        let levels = h.sublevels(b).unwrap();
+        let upper: Vec<&Sublevel> = levels.iter().rev().take(5).collect();
+        let slope = (upper.iter().map(|l| l.energy).fold(f64::MIN, f64::max)
+            - upper.iter().map(|l| l.energy).fold(f64::MAX, f64::min))
+            / (4.0 * BOHR_MAGNETON / HBAR * b);
+        assert!((slope - h.g_j / 4.0).abs() < 2e-3, "g_F = {slope}");
+    }
+
+    /// The quadrupole term shifts the F levels of a J = 3/2 manifold as Steck's closed form
+    /// E_F = A K/2 + B [3K(K+1)/2 − 2I(I+1)J(J+1)] / [4I(2I−1)J(2J−1)], K = F(F+1) − I(I+1) − J(J+1)
+    /// (Steck eq. 16), here for ⁸⁷Rb 5²P₃/₂ (A = h × 84.7185 MHz, B = h × 12.4965 MHz).
+    #[test]
+    fn quadrupole_term_matches_the_closed_form() {
+        let h = Hyperfine {
+            two_j: 3,
+            two_i: 3,
+            a: TAU * 84.7185e6,
+            b: TAU * 12.4965e6,
+            g_j: 1.3362,
+            g_i: -0.000_995_141_4,
+        };
+        let levels = h.sublevels(0.0).unwrap();
+        let (i, j) = (1.5f64, 1.5f64);
+        for f in [0.0f64, 1.0, 2.0, 3.0] {
+            let k = f * (f + 1.0) - i * (i + 1.0) - j * (j + 1.0);
+            let e = h.a * k / 2.0
+                + h.b * (1.5 * k * (k + 1.0) - 2.0 * i * (i + 1.0) * j * (j + 1.0))
+                    / (4.0 * i * (2.0 * i - 1.0) * j * (2.0 * j - 1.0));
+            let n = (2.0 * f + 1.0) as usize;
+            let hits = levels
+                .iter()
+                .filter(|l| ((l.energy - e) / h.a).abs() < 1e-9)
+                .count();
+            assert_eq!(hits, n, "F = {f}: E = {e}");
+        }
+    }
+}
