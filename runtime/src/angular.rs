@@ -356,6 +356,46 @@ pub fn hyperfine_strength(two_j: i32, two_jp: i32, two_i: i32, two_f: i32, two_f
     f64::from((two_fp + 1) * (two_j + 1)) * w * w
 }
 
+/// The dipole matrix element ⟨F m_F| e r_q |F' m_F'⟩ in units of the reduced element
+/// ⟨J‖e r‖J'⟩ of the fine-structure line (arguments doubled; q = −1, 0, +1), by the
+/// Wigner–Eckart theorem and the J → F decomposition in Steck's convention (*Rubidium 87 D Line
+/// Data*, rev. 2.2, 2021, eqs. 35–36):
+///
+/// ```text
+/// ⟨F m_F|e r_q|F' m_F'⟩ = ⟨F‖e r‖F'⟩ (−1)^{F'−1+m_F} √(2F+1) (F' 1 F; m_F' q −m_F)
+/// ⟨F‖e r‖F'⟩ = ⟨J‖e r‖J'⟩ (−1)^{F'+J+1+I} √((2F'+1)(2J+1)) {J J' 1; F' F I}
+/// ```
+///
+/// Summed over F, m_F and q, |⟨F m_F|e r_q|F' m_F'⟩|² is (2J+1)/(2J'+1) |⟨J‖e r‖J'⟩|² for every
+/// excited sublevel, so that each decays at the line's full rate (tested).
+#[allow(clippy::too_many_arguments)]
+pub fn hyperfine_dipole(
+    two_j: i32,
+    two_jp: i32,
+    two_i: i32,
+    two_f: i32,
+    two_mf: i32,
+    two_fp: i32,
+    two_mfp: i32,
+    q: i32,
+) -> f64 {
+    let sign = |twice: i32| {
+        if (twice / 2).rem_euclid(2) == 0 {
+            1.0
+        } else {
+            -1.0
+        }
+    };
+    let three_j = wigner_3j(two_fp, 2, two_f, two_mfp, 2 * q, -two_mf);
+    if three_j == 0.0 {
+        return 0.0;
+    }
+    let reduced = sign(two_fp + two_j + 2 + two_i)
+        * f64::from((two_fp + 1) * (two_j + 1)).sqrt()
+        * wigner_6j(two_j, two_jp, 2, two_fp, two_f, two_i);
+    reduced * sign(two_fp - 2 + two_mf) * f64::from(two_f + 1).sqrt() * three_j
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -376,6 +416,41 @@ mod tests {
         assert_eq!(wigner_3j(2, 2, 2, 2, 2, 0), 0.0);
         assert_eq!(wigner_3j(2, 2, 6, 0, 0, 0), 0.0);
         assert_eq!(wigner_6j(2, 2, 6, 2, 2, 2), 0.0);
+    }
+
+    /// Every excited sublevel of the ⁸⁷Rb D2 and ¹³³Cs D1 lines decays at the line's full rate:
+    /// Σ_{F m_F q} |⟨F m_F|e r_q|F' m_F'⟩|² = (2J+1)/(2J'+1) in units of |⟨J‖e r‖J'⟩|² (Steck, eq. 40
+    /// and the sum rule after it), and the σ⁺ cycling transition |2, 2⟩ ↔ |3', 3'⟩ has
+    /// |⟨2 2|e r₋₁|3' 3'⟩|² = 1/2 of |⟨J‖e r‖J'⟩|²: the stretched excited state can only decay
+    /// back to |2, 2⟩, so its one element carries the whole (2J+1)/(2J'+1).
+    #[test]
+    fn every_excited_sublevel_decays_at_the_line_rate() {
+        for (two_j, two_jp, two_i) in [(1, 3, 3), (1, 1, 7), (1, 3, 5)] {
+            let want = f64::from(two_j + 1) / f64::from(two_jp + 1);
+            let fs = |two_jj: i32| ((two_i - two_jj).abs()..=(two_i + two_jj)).step_by(2);
+            for two_fp in fs(two_jp) {
+                for two_mfp in (-two_fp..=two_fp).step_by(2) {
+                    let mut sum = 0.0;
+                    for two_f in fs(two_j) {
+                        for two_mf in (-two_f..=two_f).step_by(2) {
+                            for q in -1..=1 {
+                                sum += hyperfine_dipole(
+                                    two_j, two_jp, two_i, two_f, two_mf, two_fp, two_mfp, q,
+                                )
+                                .powi(2);
+                            }
+                        }
+                    }
+                    assert!(
+                        (sum - want).abs() < 1e-14,
+                        "2J' = {two_jp}, 2F' = {two_fp}, 2m' = {two_mfp}: {sum}"
+                    );
+                }
+            }
+        }
+        // The stretched (cycling) element carries the whole line strength of its sublevel.
+        let cycling = hyperfine_dipole(1, 3, 3, 4, 4, 6, 6, -1).powi(2);
+        assert!((cycling - 0.5).abs() < 1e-15, "{cycling}");
     }
 
     /// The ⁸⁷Rb D2 line (J = 1/2 → J' = 3/2, I = 3/2): the relative hyperfine strengths of
