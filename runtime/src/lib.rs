@@ -44,6 +44,7 @@ pub mod frame;
 pub mod hamiltonian;
 pub mod linalg;
 pub mod lindblad;
+pub mod manifold;
 pub mod observe;
 pub mod ode;
 pub mod sequence;

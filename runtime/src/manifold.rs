@@ -1,0 +1,344 @@
+//! An optical line between two hyperfine manifolds, expanded into Zeeman sublevels: an [`Atom`]
+//! whose levels are the eigenstates of the hyperfine + Zeeman Hamiltonian at a given field,
+//! whose dipoles come from the reduced matrix element by the Wigner–Eckart theorem (transformed
+//! into that eigenbasis), and whose spontaneous decay is split over every lower sublevel by the
+//! same matrix elements — so optical pumping and dark states follow from the model.
+//!
+//! Conventions (`notebooks-spec/CONVENTIONS.md` §13): the reduced element ⟨J‖e r‖J'⟩ follows from
+//! the line's decay rate, Γ = ω³ (2J+1) |⟨J‖e r‖J'⟩|² / (3π ε₀ ħ c³ (2J'+1)) (Steck, *Rubidium 87 D
+//! Line Data*, rev. 2.2, 2021, eq. 38); transitions store ⟨upper|d_q|lower⟩, the element σ⁺ light
+//! (q = +1) drives upward.
+
+use crate::angular::wigner_3j;
+use crate::atom::Atom;
+use crate::error::Error;
+use crate::field::{C_LIGHT, EPSILON_0, HBAR};
+use crate::linalg::C64;
+use crate::zeeman::Hyperfine;
+
+/// An electric-dipole line J → J' between two hyperfine manifolds.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Line {
+    /// The lower manifold.
+    pub ground: Hyperfine,
+    /// The upper manifold.
+    pub excited: Hyperfine,
+    /// Angular frequency between the two hyperfine centroids (rad/s).
+    pub omega: f64,
+    /// Decay rate Γ of every excited sublevel (1/s).
+    pub gamma: f64,
+}
+
+/// What one level of the expanded atom is.
+#[derive(Clone, Debug, PartialEq)]
+pub struct SublevelLabel {
+    /// On the upper manifold.
+    pub excited: bool,
+    /// 2F of the hyperfine level it connects to at zero field (largest overlap).
+    pub two_f: i32,
+    /// 2m_F (exact: m is conserved along the field).
+    pub two_m: i32,
+    /// The level's name in the atom, e.g. `g2_m-1` or `e3_m3`.
+    pub name: String,
+}
+
+/// An atom expanded from a [`Line`] with the labels of its levels, in the atom's order.
+#[derive(Clone, Debug)]
+pub struct LineAtom {
+    /// The atom.
+    pub atom: Atom,
+    /// One label per level.
+    pub labels: Vec<SublevelLabel>,
+}
+
+impl LineAtom {
+    /// The index of the level with this 2F and 2m on the given manifold.
+    pub fn level(&self, excited: bool, two_f: i32, two_m: i32) -> Option<usize> {
+        self.labels
+            .iter()
+            .position(|l| l.excited == excited && l.two_f == two_f && l.two_m == two_m)
+    }
+}
+
+fn half_name(twice: i32) -> String {
+    if twice % 2 == 0 {
+        format!("{}", twice / 2)
+    } else {
+        format!("{twice}half")
+    }
+}
+
+/// ⟨J m_J|e r_q|J' m_J'⟩ / ⟨J‖e r‖J'⟩ (doubled arguments), Steck's Wigner–Eckart form.
+fn fine_element(two_j: i32, two_mj: i32, two_jp: i32, two_mjp: i32, q: i32) -> f64 {
+    let w = wigner_3j(two_jp, 2, two_j, two_mjp, 2 * q, -two_mj);
+    if w == 0.0 {
+        return 0.0;
+    }
+    let e = (two_jp - 2 + two_mj) / 2;
+    let sign = if e.rem_euclid(2) == 0 { 1.0 } else { -1.0 };
+    sign * f64::from(two_j + 1).sqrt() * w
+}
+
+/// The zero-field hyperfine level 2F each sublevel connects to. Within one m block levels never
+/// cross as the field grows (they share every symmetry), so the k-th lowest sublevel of a block
+/// belongs to the k-th lowest zero-field level F ≥ |m| — the zero-field energies coming from the
+/// closed form E_F = A K/2 + B [3K(K+1)/2 − 2I(I+1)J(J+1)]/[4I(2I−1)J(2J−1)],
+/// K = F(F+1) − I(I+1) − J(J+1) (Steck eq. 16).
+fn zero_field_labels(m: &Hyperfine, levels: &[crate::zeeman::Sublevel]) -> Vec<i32> {
+    let (i, j) = (f64::from(m.two_i) / 2.0, f64::from(m.two_j) / 2.0);
+    let energy = |two_f: i32| {
+        let f = f64::from(two_f) / 2.0;
+        let k = f * (f + 1.0) - i * (i + 1.0) - j * (j + 1.0);
+        let quad = if m.two_i >= 2 && m.two_j >= 2 {
+            m.b * (1.5 * k * (k + 1.0) - 2.0 * i * (i + 1.0) * j * (j + 1.0))
+                / (4.0 * i * (2.0 * i - 1.0) * j * (2.0 * j - 1.0))
+        } else {
+            0.0
+        };
+        m.a * k / 2.0 + quad
+    };
+    let mut out = vec![0; levels.len()];
+    for two_m in (-(m.two_j + m.two_i)..=m.two_j + m.two_i).step_by(2) {
+        let mut fs: Vec<i32> = ((m.two_j - m.two_i).abs()..=(m.two_j + m.two_i))
+            .step_by(2)
+            .filter(|f| two_m.abs() <= *f)
+            .collect();
+        fs.sort_by(|a, b| energy(*a).total_cmp(&energy(*b)));
+        let mut idx: Vec<usize> = (0..levels.len())
+            .filter(|&k| levels[k].two_m == two_m)
+            .collect();
+        idx.sort_by(|&a, &b| levels[a].energy.total_cmp(&levels[b].energy));
+        for (k, f) in idx.into_iter().zip(fs) {
+            out[k] = f;
+        }
+    }
+    out
+}
+
+impl Line {
+    /// |⟨J‖e r‖J'⟩| (C·m) from Γ and ω.
+    pub fn reduced_dipole(&self) -> f64 {
+        let (j, jp) = (
+            f64::from(self.ground.two_j + 1),
+            f64::from(self.excited.two_j + 1),
+        );
+        (self.gamma * 3.0 * std::f64::consts::PI * EPSILON_0 * HBAR * C_LIGHT.powi(3) * jp
+            / (self.omega.powi(3) * j))
+            .sqrt()
+    }
+
+    /// Expand into sublevels at field `b_field` (T), keeping the hyperfine levels whose 2F
+    /// `keep_ground` and 2F' `keep_excited` accept. A kept excited sublevel must decay only to
+    /// kept ground sublevels (e.g. F' = F + 1 of an alkali D2 line needs only F); otherwise the
+    /// branching check fails and the expansion is refused.
+    pub fn expand(
+        &self,
+        b_field: f64,
+        keep_ground: impl Fn(i32) -> bool,
+        keep_excited: impl Fn(i32) -> bool,
+    ) -> Result<LineAtom, Error> {
+        if !(self.omega > 0.0
+            && self.gamma > 0.0
+            && self.omega.is_finite()
+            && self.gamma.is_finite())
+        {
+            return Err(Error::OutOfRange {
+                what: "the line's frequency and decay rate".into(),
+                value: self.gamma,
+                hint: "both finite and positive",
+            });
+        }
+        let d_red = self.reduced_dipole();
+        let (g, e) = (&self.ground, &self.excited);
+        let (gb, eb) = (g.basis(), e.basis());
+        let gl = g.sublevels(b_field)?;
+        let el = e.sublevels(b_field)?;
+        let (g_f, e_f) = (zero_field_labels(g, &gl), zero_field_labels(e, &el));
+        let mut b = Atom::builder();
+        let mut labels = Vec::new();
+        let mut g_ids = Vec::new();
+        for (s, &f) in gl.iter().zip(&g_f) {
+            if !keep_ground(f) {
+                continue;
+            }
+            let name = format!("g{}_m{}", half_name(f), half_name(s.two_m));
+            g_ids.push((b.level(name.clone(), s.energy), s));
+            labels.push(SublevelLabel {
+                excited: false,
+                two_f: f,
+                two_m: s.two_m,
+                name,
+            });
+        }
+        let mut e_ids = Vec::new();
+        for (s, &f) in el.iter().zip(&e_f) {
+            if !keep_excited(f) {
+                continue;
+            }
+            let name = format!("e{}_m{}", half_name(f), half_name(s.two_m));
+            e_ids.push((b.level(name.clone(), self.omega + s.energy), s));
+            labels.push(SublevelLabel {
+                excited: true,
+                two_f: f,
+                two_m: s.two_m,
+                name,
+            });
+        }
+        // ⟨upper|d_q|lower⟩ = (−1)^q ⟨lower|d_{−q}|upper⟩ in units of ⟨J‖e r‖J'⟩, summed over the
+        // uncoupled components of both eigenstates (the nuclear projection is a spectator).
+        let norm = f64::from(g.two_j + 1) / f64::from(e.two_j + 1);
+        for (ei, es) in &e_ids {
+            let mut branches = Vec::new();
+            for (gi, gs) in &g_ids {
+                let mut d = [0.0f64; 3];
+                for (qi, q) in (-1..=1).enumerate() {
+                    let mut sum = 0.0;
+                    for (a, &(mj, mi)) in gb.iter().enumerate() {
+                        if gs.amplitudes[a] == 0.0 {
+                            continue;
+                        }
+                        for (k, &(mjp, mip)) in eb.iter().enumerate() {
+                            if mi != mip || es.amplitudes[k] == 0.0 {
+                                continue;
+                            }
+                            sum += gs.amplitudes[a]
+                                * es.amplitudes[k]
+                                * fine_element(g.two_j, mj, e.two_j, mjp, -q);
+                        }
+                    }
+                    d[qi] = if q % 2 == 0 { sum } else { -sum };
+                }
+                let strength: f64 = d.iter().map(|x| x * x).sum();
+                if strength < 1e-24 {
+                    continue;
+                }
+                b.transition_with_dipole(*gi, *ei, d.map(|x| C64::new(x * d_red, 0.0)));
+                branches.push((*gi, strength / norm));
+            }
+            // The fractions sum to one by the sum rule Σ_{g,q} |d_q|² = (2J+1)/(2J'+1); a larger
+            // miss than rounding means inconsistent input (or a kept sublevel decaying out of
+            // the model), which is refused rather than hidden. The last ulps are renormalised
+            // so that the builder's check of Σ = 1 holds exactly.
+            let total: f64 = branches.iter().map(|x| x.1).sum();
+            if (total - 1.0).abs() > 1e-9 {
+                return Err(Error::OutOfRange {
+                    what: "the decay branching of an excited sublevel".into(),
+                    value: total,
+                    hint: "the partial rates from the matrix elements should sum to the line's rate",
+                });
+            }
+            {
+                let fractions: Vec<(usize, f64)> =
+                    branches.iter().map(|&(l, f)| (l, f / total)).collect();
+                b.decay_branched(*ei, self.gamma, &fractions);
+            }
+        }
+        Ok(LineAtom {
+            atom: b.build()?,
+            labels,
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::atom::E_A0;
+    use std::f64::consts::TAU;
+
+    /// ⁸⁷Rb D2: λ = 780.241 209 686 nm, Γ = 2π × 6.0666 MHz, 5²P₃/₂ A = h × 84.7185 MHz,
+    /// B = h × 12.4965 MHz, g_J' = 1.3362 (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021,
+    /// tables 3–7; recalled from there).
+    pub(crate) fn rb87_d2() -> Line {
+        let gi = -0.000_995_141_4;
+        Line {
+            ground: Hyperfine {
+                two_j: 1,
+                two_i: 3,
+                a: TAU * 3.417_341_305_452_15e9,
+                b: 0.0,
+                g_j: 2.002_331_13,
+                g_i: gi,
+            },
+            excited: Hyperfine {
+                two_j: 3,
+                two_i: 3,
+                a: TAU * 84.7185e6,
+                b: TAU * 12.4965e6,
+                g_j: 1.3362,
+                g_i: gi,
+            },
+            omega: TAU * C_LIGHT / 780.241_209_686e-9,
+            gamma: TAU * 6.0666e6,
+        }
+    }
+
+    /// The reduced element and the σ⁺ cycling saturation intensity of ⁸⁷Rb D2:
+    /// ⟨J‖e r‖J'⟩ = 4.227 e a₀ and I_sat = c ε₀ Γ² ħ² / (4 |d_cyc|²) = 1.669 mW/cm² (Steck,
+    /// tables 7 and the σ± cycling entry; eq. 50). Tolerance 0.3 %: Γ and λ are rounded above.
+    #[test]
+    fn rb87_d2_reduced_dipole_and_saturation_intensity() {
+        let line = rb87_d2();
+        let d = line.reduced_dipole();
+        assert!((d / E_A0 / 4.227 - 1.0).abs() < 3e-3, "{}", d / E_A0);
+        let la = line.expand(0.0, |_| true, |f| f == 6).unwrap();
+        let (g, e) = (
+            la.level(false, 4, 4).unwrap(),
+            la.level(true, 6, 6).unwrap(),
+        );
+        let tr = la
+            .atom
+            .transitions()
+            .iter()
+            .find(|t| t.lower() == g && t.upper() == e)
+            .unwrap();
+        let dq = tr.dipole();
+        assert!(
+            dq[0].norm() < 1e-40 && dq[1].norm() < 1e-40,
+            "only σ⁺ reaches the stretched state"
+        );
+        let isat =
+            C_LIGHT * EPSILON_0 * line.gamma.powi(2) * HBAR.powi(2) / (4.0 * dq[2].norm_sqr());
+        assert!(
+            (isat / 16.69 - 1.0).abs() < 3e-3,
+            "I_sat = {} mW/cm²",
+            isat / 10.0
+        );
+    }
+
+    /// Every excited sublevel decays at Γ in all, whatever the field, and the stretched
+    /// |3', 3'⟩ decays only to |2, 2⟩ (common practice: the cycling transition is closed).
+    #[test]
+    fn decay_comes_out_of_the_matrix_elements() {
+        let line = rb87_d2();
+        for b in [0.0, 1e-4, 0.05] {
+            let la = line.expand(b, |_| true, |_| true).unwrap();
+            let total = la.atom.total_decay_rates();
+            for (k, l) in la.labels.iter().enumerate() {
+                if l.excited {
+                    assert!(
+                        (total[k] / line.gamma - 1.0).abs() < 1e-12,
+                        "{}: {}",
+                        l.name,
+                        total[k]
+                    );
+                }
+            }
+        }
+        let la = line.expand(1e-4, |_| true, |_| true).unwrap();
+        // F' = 2 decays to F = 1 as well: keeping only F = 2 is refused.
+        assert!(line.expand(0.0, |f| f == 4, |f| f == 4).is_err());
+        let top = la.level(true, 6, 6).unwrap();
+        let to: Vec<usize> = la
+            .atom
+            .decays()
+            .iter()
+            .filter(|d| d.from == top && d.rate > 1e-9 * line.gamma)
+            .map(|d| d.to)
+            .collect();
+        assert_eq!(to, vec![la.level(false, 4, 4).unwrap()]);
+        // The full D2 manifold: 8 ground and 16 excited sublevels.
+        assert_eq!(la.labels.iter().filter(|l| !l.excited).count(), 8);
+        assert_eq!(la.labels.iter().filter(|l| l.excited).count(), 16);
+    }
+}
