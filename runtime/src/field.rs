@@ -63,6 +63,50 @@ impl Polarization {
         }
         Ok(Self(components.map(|z| z / norm)))
     }
+    /// The spherical components of a polarisation given as a Cartesian (Jones) vector `e` in the
+    /// lab frame, relative to the quantisation axis `axis` (e.g. the magnetic field's direction).
+    /// The lab frame is turned so that `axis` becomes z (the x axis of the new frame is the
+    /// component of lab x — or of lab y when the axis is along x — perpendicular to `axis`), and
+    /// then ε^q = e_q*·ε: ε^{+1} = −(ε_x − iε_y)/√2, ε^0 = ε_z, ε^{−1} = (ε_x + iε_y)/√2 (the basis
+    /// of the type docs). Linear light along the axis is π; circular light turning
+    /// anticlockwise about the axis, ε = −(x + iy)/√2, is σ⁺. Fails on zero or non-finite input.
+    pub fn from_cartesian(e: [C64; 3], axis: [f64; 3]) -> Result<Self, Error> {
+        let norm = |v: [f64; 3]| (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt();
+        let n = norm(axis);
+        if !(n.is_finite() && n > 0.0) {
+            return Err(Error::OutOfRange {
+                what: "the quantisation axis's length".into(),
+                value: n,
+                hint: "a finite, non-zero direction",
+            });
+        }
+        let z = axis.map(|c| c / n);
+        // A lab vector not parallel to z, made perpendicular to it: the new x.
+        let seed = if z[0].abs() < 0.9 {
+            [1.0, 0.0, 0.0]
+        } else {
+            [0.0, 1.0, 0.0]
+        };
+        let dot = seed[0] * z[0] + seed[1] * z[1] + seed[2] * z[2];
+        let xr = [
+            seed[0] - dot * z[0],
+            seed[1] - dot * z[1],
+            seed[2] - dot * z[2],
+        ];
+        let xn = norm(xr);
+        let x = xr.map(|c| c / xn);
+        let y = [
+            z[1] * x[2] - z[2] * x[1],
+            z[2] * x[0] - z[0] * x[2],
+            z[0] * x[1] - z[1] * x[0],
+        ];
+        let proj = |u: [f64; 3]| e[0] * u[0] + e[1] * u[1] + e[2] * u[2];
+        let (ex, ey, ez) = (proj(x), proj(y), proj(z));
+        let i = C64::new(0.0, 1.0);
+        let s = std::f64::consts::FRAC_1_SQRT_2;
+        Self::new([(ex + i * ey) * s, ez, -(ex - i * ey) * s])
+    }
+
     /// The components ε^q, q = −1, 0, +1.
     pub fn components(&self) -> [C64; 3] {
         self.0
@@ -336,6 +380,53 @@ impl Field {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn c(re: f64, im: f64) -> C64 {
+        C64::new(re, im)
+    }
+
+    /// Linear along the axis is π, linear across it is an equal mix of σ±, circular light about
+    /// the axis is pure σ⁺ or σ⁻, and tilting linear light by θ gives cos θ of π (the spherical
+    /// basis of Steck's alkali D-line notes; common practice).
+    #[test]
+    fn cartesian_polarisations_relative_to_the_axis() {
+        let z = [0.0, 0.0, 1.0];
+        let close = |p: Polarization, want: [C64; 3]| {
+            p.components()
+                .iter()
+                .zip(&want)
+                .all(|(a, b)| (a - b).norm() < 1e-15)
+        };
+        let s = std::f64::consts::FRAC_1_SQRT_2;
+        assert!(close(
+            Polarization::from_cartesian([c(0., 0.), c(0., 0.), c(1., 0.)], z).unwrap(),
+            Polarization::pi().components()
+        ));
+        let sp = Polarization::from_cartesian([c(-s, 0.), c(0., -s), c(0., 0.)], z).unwrap();
+        assert!(close(sp, Polarization::sigma_plus().components()));
+        let sm = Polarization::from_cartesian([c(s, 0.), c(0., -s), c(0., 0.)], z).unwrap();
+        assert!(close(sm, Polarization::sigma_minus().components()));
+        let across = Polarization::from_cartesian([c(1., 0.), c(0., 0.), c(0., 0.)], z)
+            .unwrap()
+            .components();
+        assert!(
+            (across[0].norm() - s).abs() < 1e-15
+                && (across[2].norm() - s).abs() < 1e-15
+                && across[1].norm() < 1e-15
+        );
+        // The axis along lab x: light polarised along x is π there.
+        let px = Polarization::from_cartesian([c(1., 0.), c(0., 0.), c(0., 0.)], [2.0, 0.0, 0.0])
+            .unwrap()
+            .components();
+        assert!((px[1].norm() - 1.0).abs() < 1e-15);
+        let th: f64 = 0.3;
+        let tilted = Polarization::from_cartesian([c(th.sin(), 0.), c(0., 0.), c(th.cos(), 0.)], z)
+            .unwrap()
+            .components();
+        assert!((tilted[1].norm() - th.cos()).abs() < 1e-15);
+        assert!(Polarization::from_cartesian([c(1., 0.), c(0., 0.), c(0., 0.)], [0.0; 3]).is_err());
+    }
+
     use crate::atom::E_A0;
 
     fn two_level() -> Atom {
