@@ -1,0 +1,529 @@
+//! Figures as inline SVG: line plots through plotters' SVG backend (no font files: text is
+//! left to the browser), heat maps as plotters axes around cells written as one compact path per
+//! colour, since one `<rect>` per cell would make a 201 × 201 map weigh megabytes.
+
+use std::fmt::Write as _;
+
+use plotters::coord::ranged1d::ValueFormatter;
+use plotters::coord::types::RangedCoordf64;
+use plotters::prelude::*;
+
+use super::units::{Scale, axis_title, scale_for, tick};
+use crate::record::Column;
+
+/// Figure size in CSS pixels; the style sheet lets it shrink to the page width.
+const WIDTH: u32 = 720;
+const HEIGHT: u32 = 420;
+/// Heat maps are drawn with at most this many cells per axis (neighbouring points averaged).
+const MAX_CELLS: usize = 120;
+/// Curves longer than this are thinned to the minimum and maximum of each bucket, which keeps
+/// every visible extreme.
+const MAX_POINTS: usize = 2000;
+/// Colour steps of the heat map and its colour bar.
+const LEVELS: usize = 64;
+/// Line colours, in order of the curves: dark, distinct in print and for common colour-vision
+/// deficiencies, our own choice.
+const PALETTE: [RGBColor; 6] = [
+    RGBColor(0x27, 0x47, 0x6e),
+    RGBColor(0xb0, 0x4a, 0x26),
+    RGBColor(0x3b, 0x7a, 0x45),
+    RGBColor(0x7a, 0x4d, 0x8c),
+    RGBColor(0x9a, 0x7b, 0x10),
+    RGBColor(0x40, 0x40, 0x40),
+];
+/// Heat-map colour stops from low to high: paper, straw, terracotta, mulberry, ink, so
+/// lightness falls monotonically and the map still reads in grey print.
+const STOPS: [(u8, u8, u8); 5] = [
+    (0xfa, 0xf7, 0xec),
+    (0xe8, 0xc5, 0x78),
+    (0xcc, 0x78, 0x4a),
+    (0x7a, 0x3c, 0x62),
+    (0x21, 0x1d, 0x40),
+];
+/// Cells without a finite value.
+const MISSING: RGBColor = RGBColor(0xbb, 0xbb, 0xbb);
+const FONT: &str = "sans-serif";
+
+/// Why a figure could not be drawn.
+#[derive(Debug, thiserror::Error)]
+pub enum PlotError {
+    /// The columns do not fit together.
+    #[error("{0}")]
+    Shape(String),
+    /// The drawing backend failed.
+    #[error("drawing failed: {0}")]
+    Draw(String),
+}
+
+fn draw_err<E: std::fmt::Debug>(e: E) -> PlotError {
+    PlotError::Draw(format!("{e:?}"))
+}
+
+/// The colour of level `k` of [`LEVELS`].
+fn colour(k: usize) -> RGBColor {
+    let t = k as f64 / (LEVELS - 1) as f64 * (STOPS.len() - 1) as f64;
+    let i = (t.floor() as usize).min(STOPS.len() - 2);
+    let f = t - i as f64;
+    let mix = |a: u8, b: u8| (f64::from(a) + (f64::from(b) - f64::from(a)) * f).round() as u8;
+    let (a, b) = (STOPS[i], STOPS[i + 1]);
+    RGBColor(mix(a.0, b.0), mix(a.1, b.1), mix(a.2, b.2))
+}
+
+/// Finite range of `values`, widened when it is empty or a single point so axes stay valid.
+fn range(values: impl Iterator<Item = f64>, log: bool) -> (f64, f64) {
+    let (lo, hi) = values
+        .filter(|v| v.is_finite() && (!log || *v > 0.0))
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(l, h), v| {
+            (l.min(v), h.max(v))
+        });
+    if !lo.is_finite() {
+        return if log { (0.1, 10.0) } else { (0.0, 1.0) };
+    }
+    if hi > lo {
+        (lo, hi)
+    } else if log {
+        (lo / 2.0, hi * 2.0)
+    } else {
+        let pad = if lo == 0.0 { 1.0 } else { lo.abs() * 0.05 };
+        (lo - pad, hi + pad)
+    }
+}
+
+/// Thins a long curve to the minimum and maximum of each of `MAX_POINTS / 2` buckets.
+fn thin(points: Vec<(f64, f64)>) -> Vec<(f64, f64)> {
+    if points.len() <= MAX_POINTS {
+        return points;
+    }
+    let bucket = points.len().div_ceil(MAX_POINTS / 2);
+    let mut out = Vec::with_capacity(MAX_POINTS + 2);
+    for chunk in points.chunks(bucket) {
+        let by_y = |a: &&(f64, f64), b: &&(f64, f64)| a.1.total_cmp(&b.1);
+        let (Some(lo), Some(hi)) = (chunk.iter().min_by(by_y), chunk.iter().max_by(by_y)) else {
+            continue;
+        };
+        if lo.0 <= hi.0 {
+            out.extend([*lo, *hi]);
+        } else {
+            out.extend([*hi, *lo]);
+        }
+    }
+    out
+}
+
+/// The y scale and title of a plot's curves: scaled by the first curve's unit when all share its
+/// dimension, else in SI.
+fn y_axis(curves: &[Column]) -> (Scale, String) {
+    let Some(first) = curves.first() else {
+        return (scale_for([0; 5], &[]), String::new());
+    };
+    if curves.iter().any(|c| c.dim != first.dim) {
+        let s = Scale {
+            factor: 1.0,
+            unit: "SI".into(),
+            per_2pi: false,
+        };
+        return (s, "value (SI units)".into());
+    }
+    let all: Vec<f64> = curves
+        .iter()
+        .flat_map(|c| c.values.iter().copied())
+        .collect();
+    let s = scale_for(first.dim, &all);
+    let label = if curves.len() == 1 {
+        first.label.as_str()
+    } else {
+        "value"
+    };
+    let title = axis_title(label, &s);
+    (s, title)
+}
+
+/// A line plot of `curves` over `x`, with a legend when there are several.
+pub(crate) fn curves(
+    title: &str,
+    x: &Column,
+    curves: &[Column],
+    log_x: bool,
+    log_y: bool,
+) -> Result<String, PlotError> {
+    if let Some(c) = curves.iter().find(|c| c.values.len() != x.values.len()) {
+        return Err(PlotError::Shape(format!(
+            "curve `{}` has {} values for {} x values",
+            c.label,
+            c.values.len(),
+            x.values.len()
+        )));
+    }
+    let sx = scale_for(x.dim, &x.values);
+    let (sy, y_title) = y_axis(curves);
+    let keep = |v: f64, log: bool| v.is_finite() && (!log || v > 0.0);
+    let series: Vec<Vec<(f64, f64)>> = curves
+        .iter()
+        .map(|c| {
+            thin(
+                x.values
+                    .iter()
+                    .zip(&c.values)
+                    .map(|(a, b)| (a * sx.factor, b * sy.factor))
+                    .filter(|(a, b)| keep(*a, log_x) && keep(*b, log_y))
+                    .collect(),
+            )
+        })
+        .collect();
+    let (x0, x1) = range(series.iter().flatten().map(|p| p.0), log_x);
+    let (y0, y1) = range(series.iter().flatten().map(|p| p.1), log_y);
+    // A little room above and below so curves do not run along the frame.
+    let (y0, y1) = if log_y {
+        (y0, y1)
+    } else {
+        let pad = (y1 - y0) * 0.04;
+        (y0 - pad, y1 + pad)
+    };
+    let names: Vec<&str> = curves.iter().map(|c| c.label.as_str()).collect();
+    let frame = Frame {
+        x_title: axis_title(&x.label, &sx),
+        y_title,
+        legend: curves.len() > 1,
+    };
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (WIDTH, HEIGHT)).into_drawing_area();
+        let mut builder = ChartBuilder::on(&root);
+        builder
+            .caption(title, (FONT, 16))
+            .margin(12)
+            .x_label_area_size(44)
+            .y_label_area_size(64);
+        match (log_x, log_y) {
+            (false, false) => {
+                let c = builder
+                    .build_cartesian_2d(x0..x1, y0..y1)
+                    .map_err(draw_err)?;
+                lines(c, &frame, &series, &names)?;
+            }
+            (true, false) => {
+                let c = builder
+                    .build_cartesian_2d((x0..x1).log_scale(), y0..y1)
+                    .map_err(draw_err)?;
+                lines(c, &frame, &series, &names)?;
+            }
+            (false, true) => {
+                let c = builder
+                    .build_cartesian_2d(x0..x1, (y0..y1).log_scale())
+                    .map_err(draw_err)?;
+                lines(c, &frame, &series, &names)?;
+            }
+            (true, true) => {
+                let c = builder
+                    .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
+                    .map_err(draw_err)?;
+                lines(c, &frame, &series, &names)?;
+            }
+        }
+        root.present().map_err(draw_err)?;
+    }
+    Ok(inline(svg))
+}
+
+/// Drops the SVG namespace declaration, which inline SVG in HTML does not need, so the page
+/// names no outside address at all.
+fn inline(svg: String) -> String {
+    svg.replacen(" xmlns=\"http://www.w3.org/2000/svg\"", "", 1)
+}
+
+/// Titles of a figure's axes.
+struct Frame {
+    x_title: String,
+    y_title: String,
+    legend: bool,
+}
+
+/// Axes, curves and legend on a built chart, for any pair of linear or logarithmic axes.
+fn lines<'a, X, Y>(
+    mut chart: ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
+    frame: &Frame,
+    series: &[Vec<(f64, f64)>],
+    names: &[&str],
+) -> Result<(), PlotError>
+where
+    X: Ranged<ValueType = f64> + ValueFormatter<f64>,
+    Y: Ranged<ValueType = f64> + ValueFormatter<f64>,
+{
+    chart
+        .configure_mesh()
+        .x_desc(frame.x_title.as_str())
+        .y_desc(frame.y_title.as_str())
+        .x_label_formatter(&|v| tick(*v))
+        .y_label_formatter(&|v| tick(*v))
+        .label_style((FONT, 12))
+        .axis_desc_style((FONT, 13))
+        .bold_line_style(RGBColor(0xe4, 0xe1, 0xd8))
+        .light_line_style(RGBColor(0xf3, 0xf1, 0xea))
+        .draw()
+        .map_err(draw_err)?;
+    for (i, (points, name)) in series.iter().zip(names).enumerate() {
+        let colour = PALETTE[i % PALETTE.len()];
+        let style = ShapeStyle::from(&colour).stroke_width(2);
+        chart
+            .draw_series(LineSeries::new(points.iter().copied(), style))
+            .map_err(draw_err)?
+            .label(*name)
+            .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+    }
+    if frame.legend {
+        chart
+            .configure_series_labels()
+            .position(SeriesLabelPosition::UpperRight)
+            .label_font((FONT, 12))
+            .background_style(WHITE.mix(0.85))
+            .border_style(RGBColor(0xd5, 0xd2, 0xc8))
+            .draw()
+            .map_err(draw_err)?;
+    }
+    Ok(())
+}
+
+/// Cell edges of an axis: midpoints between neighbours, extended by half a step at the ends.
+fn edges(v: &[f64]) -> Vec<f64> {
+    match v {
+        [] => vec![],
+        [a] => {
+            let pad = if *a == 0.0 { 0.5 } else { a.abs() * 0.05 };
+            vec![a - pad, a + pad]
+        }
+        _ => {
+            let n = v.len();
+            let mut e = Vec::with_capacity(n + 1);
+            e.push(v[0] - (v[1] - v[0]) / 2.0);
+            e.extend(v.windows(2).map(|w| (w[0] + w[1]) / 2.0));
+            e.push(v[n - 1] + (v[n - 1] - v[n - 2]) / 2.0);
+            e
+        }
+    }
+}
+
+/// Blocks of at most `MAX_CELLS` groups over `n` points: (first, one past last).
+fn blocks(n: usize) -> Vec<(usize, usize)> {
+    let stride = n.div_ceil(MAX_CELLS).max(1);
+    (0..n)
+        .step_by(stride)
+        .map(|i| (i, (i + stride).min(n)))
+        .collect()
+}
+
+/// A heat map of `z` over `x` (horizontal) and `y` (vertical) with a colour bar.
+pub(crate) fn heat_map(
+    title: &str,
+    x: &Column,
+    y: &Column,
+    z: &Column,
+) -> Result<String, PlotError> {
+    let (nx, ny) = (x.values.len(), y.values.len());
+    if nx == 0 || ny == 0 || z.values.len() != nx * ny {
+        return Err(PlotError::Shape(format!(
+            "map `{}` has {} values for a {nx} × {ny} grid",
+            z.label,
+            z.values.len()
+        )));
+    }
+    let (sx, sy, sz) = (
+        scale_for(x.dim, &x.values),
+        scale_for(y.dim, &y.values),
+        scale_for(z.dim, &z.values),
+    );
+    let ex: Vec<f64> = edges(&x.values).iter().map(|v| v * sx.factor).collect();
+    let ey: Vec<f64> = edges(&y.values).iter().map(|v| v * sy.factor).collect();
+    if ex.iter().chain(&ey).any(|v| !v.is_finite()) {
+        return Err(PlotError::Shape(format!(
+            "map `{}` has an axis value that is not finite",
+            z.label
+        )));
+    }
+    let (z0, z1) = range(z.values.iter().map(|v| v * sz.factor), false);
+    let (bx, by) = (blocks(nx), blocks(ny));
+    // Mean of each block of points, row by row (y outer) so runs along x can be merged.
+    let level = |(i0, i1): (usize, usize), (j0, j1): (usize, usize)| -> Option<usize> {
+        let (mut sum, mut count) = (0.0, 0usize);
+        for i in i0..i1 {
+            for j in j0..j1 {
+                let v = z.values[i * ny + j] * sz.factor;
+                if v.is_finite() {
+                    sum += v;
+                    count += 1;
+                }
+            }
+        }
+        (count > 0).then(|| {
+            let t = ((sum / count as f64 - z0) / (z1 - z0)).clamp(0.0, 1.0);
+            (t * (LEVELS - 1) as f64).round() as usize
+        })
+    };
+    let mut paths: Vec<String> = vec![String::new(); LEVELS + 1];
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (WIDTH, HEIGHT)).into_drawing_area();
+        let root = root.titled(title, (FONT, 16)).map_err(draw_err)?;
+        let (main, bar) = root.split_horizontally(WIDTH - 110);
+        let (lo_x, hi_x) = range(ex.iter().copied(), false);
+        let (lo_y, hi_y) = range(ey.iter().copied(), false);
+        let mut chart = ChartBuilder::on(&main)
+            .margin(12)
+            .x_label_area_size(44)
+            .y_label_area_size(64)
+            .build_cartesian_2d(lo_x..hi_x, lo_y..hi_y)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .disable_mesh()
+            .x_desc(axis_title(&x.label, &sx))
+            .y_desc(axis_title(&y.label, &sy))
+            .x_label_formatter(&|v| tick(*v))
+            .y_label_formatter(&|v| tick(*v))
+            .label_style((FONT, 12))
+            .axis_desc_style((FONT, 13))
+            .draw()
+            .map_err(draw_err)?;
+        for &(j0, j1) in &by {
+            let (top, bottom) = (ey[j0].max(ey[j1]), ey[j0].min(ey[j1]));
+            let mut run: Option<(usize, i32, i32, i32, i32)> = None;
+            for &(i0, i1) in &bx {
+                let k = level((i0, i1), (j0, j1)).unwrap_or(LEVELS);
+                let (left, right) = (ex[i0].min(ex[i1]), ex[i0].max(ex[i1]));
+                let (px0, py0) = chart.backend_coord(&(left, top));
+                let (px1, py1) = chart.backend_coord(&(right, bottom));
+                run = match run {
+                    Some((rk, rx0, _, ry0, ry1)) if rk == k => Some((rk, rx0, px1, ry0, ry1)),
+                    other => {
+                        if let Some(r) = other {
+                            push_cell(&mut paths, r);
+                        }
+                        Some((k, px0, px1, py0, py1))
+                    }
+                };
+            }
+            if let Some(r) = run {
+                push_cell(&mut paths, r);
+            }
+        }
+        colour_bar(&bar, z0, z1, &axis_title(&z.label, &sz))?;
+        root.present().map_err(draw_err)?;
+    }
+    let mut cells = String::from("<g shape-rendering=\"crispEdges\">");
+    for (k, d) in paths.iter().enumerate().filter(|(_, d)| !d.is_empty()) {
+        let c = if k == LEVELS { MISSING } else { colour(k) };
+        let _ = write!(
+            cells,
+            "<path fill=\"#{:02x}{:02x}{:02x}\" d=\"{d}\"/>",
+            c.0, c.1, c.2
+        );
+    }
+    cells.push_str("</g>");
+    // Cells go first so that the axes plotters drew stay on top of them.
+    let at = svg
+        .find("<svg")
+        .and_then(|s| svg[s..].find('>').map(|e| s + e + 1))
+        .ok_or_else(|| PlotError::Draw("the backend wrote no <svg> element".into()))?;
+    svg.insert_str(at, &cells);
+    Ok(inline(svg))
+}
+
+/// Appends one run of equal-colour cells (level, x0, x1, y0, y1 in pixels) to its level's path.
+fn push_cell(paths: &mut [String], (k, x0, x1, y0, y1): (usize, i32, i32, i32, i32)) {
+    if let Some(d) = paths.get_mut(k) {
+        let _ = write!(d, "M{x0} {y0}h{}v{}h{}z", x1 - x0, y1 - y0, x0 - x1);
+    }
+}
+
+/// The colour bar beside a heat map: the levels from `z0` (bottom) to `z1` (top), labelled.
+fn colour_bar(
+    area: &DrawingArea<SVGBackend<'_>, plotters::coord::Shift>,
+    z0: f64,
+    z1: f64,
+    title: &str,
+) -> Result<(), PlotError> {
+    let mut chart: ChartContext<'_, _, Cartesian2d<RangedCoordf64, RangedCoordf64>> =
+        ChartBuilder::on(area)
+            .margin_top(12)
+            .margin_bottom(12)
+            .x_label_area_size(44)
+            .set_label_area_size(LabelAreaPosition::Right, 80)
+            .build_cartesian_2d(0.0..1.0, z0..z1)
+            .map_err(draw_err)?;
+    chart
+        .configure_mesh()
+        .disable_mesh()
+        .disable_x_axis()
+        .y_desc(title)
+        .y_label_formatter(&|v| tick(*v))
+        .label_style((FONT, 12))
+        .axis_desc_style((FONT, 13))
+        .draw()
+        .map_err(draw_err)?;
+    let step = (z1 - z0) / LEVELS as f64;
+    chart
+        .draw_series((0..LEVELS).map(|k| {
+            let lo = z0 + step * k as f64;
+            Rectangle::new([(0.0, lo), (1.0, lo + step)], colour(k).filled())
+        }))
+        .map_err(draw_err)?;
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn col(label: &str, dim: [i8; 5], values: Vec<f64>) -> Column {
+        Column {
+            label: label.into(),
+            dim,
+            values,
+        }
+    }
+
+    #[test]
+    fn line_plots_have_size_legend_and_units() {
+        let x = col(
+            "time",
+            [1, 0, 0, 0, 0],
+            (0..50).map(|i| i as f64 * 1e-7).collect(),
+        );
+        let a = col(
+            "p(e)",
+            [0; 5],
+            (0..50).map(|i| (i as f64 * 0.1).sin()).collect(),
+        );
+        let b = col(
+            "p(g)",
+            [0; 5],
+            (0..50).map(|i| (i as f64 * 0.1).cos()).collect(),
+        );
+        let svg = curves("t", &x, &[a, b], false, false).expect("drawn");
+        assert!(svg.contains("width=\"720\"") && svg.contains("height=\"420\""));
+        assert!(svg.contains("time (µs)"), "{svg}");
+        assert!(svg.contains("p(g)"));
+    }
+
+    #[test]
+    fn log_axes_skip_non_positive_values() {
+        let x = col("rabi", [-1, 0, 0, 0, 0], vec![0.0, 1e3, 1e4, 1e5]);
+        let y = col("rate", [-1, 0, 0, 0, 0], vec![-1.0, 1.0, 10.0, 100.0]);
+        assert!(curves("l", &x, &[y], true, true).is_ok());
+    }
+
+    #[test]
+    fn heat_maps_are_downsampled_and_refuse_bad_shapes() {
+        let n = 201;
+        let x = col("d", [-1, 0, 0, 0, 0], (0..n).map(|i| i as f64).collect());
+        let y = col(
+            "len",
+            [1, 0, 0, 0, 0],
+            (0..n).map(|i| i as f64 * 1e-6).collect(),
+        );
+        let z = col("p", [0; 5], (0..n * n).map(|k| (k % 7) as f64).collect());
+        let svg = heat_map("m", &x, &y, &z).expect("drawn");
+        assert!(svg.matches('M').count() <= 101 * 101 + 200);
+        let short = col("p", [0; 5], vec![1.0; 5]);
+        assert!(heat_map("m", &x, &y, &short).is_err());
+    }
+}
