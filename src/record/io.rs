@@ -49,9 +49,19 @@ fn io(path: &Path) -> impl Fn(std::io::Error) -> RecordError + '_ {
     }
 }
 
-/// Read a record from a `.record.json` file.
+/// Read a record from a `.record.json` file, or the record embedded in an HTML report (`.html`).
 pub fn read(path: &Path) -> Result<Record, RecordError> {
     let text = fs::read(path).map_err(io(path))?;
+    if path
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("html"))
+    {
+        let html = String::from_utf8_lossy(&text);
+        return crate::render::extract_record(&html).map_err(|e| RecordError::NotARecord {
+            path: path.to_path_buf(),
+            reason: e.to_string(),
+        });
+    }
     let value: serde_json::Value =
         serde_json::from_slice(&text).map_err(|e| RecordError::NotARecord {
             path: path.to_path_buf(),

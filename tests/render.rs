@@ -1,0 +1,416 @@
+//! The HTML report as a reader and an archive see it: run examples with `--out`, render their
+//! records, then check that each page is self-contained (no script but the record, no outside address), shows its figures
+//! and checks, embeds exactly the record beside it, and can be re-run and diffed; hostile prose
+//! is sanitised, math becomes MathML; a large synthetic record renders fast and stays small.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+use std::time::Instant;
+
+use fieldbook::kernel::results::{AxisResult, EvolveResult, ObsResult, SolverInfo};
+use fieldbook::record::{
+    self, CellOutput, CellRecord, CheckRecord, Column, Lineage, NamedResult, ParamRecord, Record,
+    SourceInfo, Timing, Volatile,
+};
+use fieldbook::render;
+
+fn bin() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_fieldbook"))
+}
+
+fn temp_dir(name: &str) -> PathBuf {
+    let d = std::env::temp_dir().join(format!("fieldbook-render-{name}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&d);
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+fn text(o: &Output) -> String {
+    format!(
+        "{}{}",
+        String::from_utf8_lossy(&o.stdout),
+        String::from_utf8_lossy(&o.stderr)
+    )
+}
+
+fn example(name: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(format!("notebooks-spec/examples/{name}.md"))
+}
+
+/// Runs `file` with `--out dir` (cache inside `dir`), renders the record it wrote with
+/// `templates`, and writes the report beside it as `NAME.html`, returning the page.
+fn run(file: &Path, dir: &Path, templates: Option<&Path>) -> String {
+    let o = bin()
+        .arg("run")
+        .arg(file)
+        .arg("--out")
+        .arg(dir)
+        .arg("--cache")
+        .arg(dir.join("cache"))
+        .output()
+        .unwrap();
+    let stem = file.file_stem().unwrap().to_string_lossy().into_owned();
+    let rec = record::io::read(&dir.join(format!("{stem}.record.json")))
+        .unwrap_or_else(|e| panic!("{e}\n{}", text(&o)));
+    let html = render::report(&rec, templates).unwrap();
+    record::io::write_atomic(&dir.join(format!("{stem}.html")), html.as_bytes()).unwrap();
+    html
+}
+
+/// The page without its embedded record, i.e. everything the renderer wrote itself.
+fn without_record(html: &str) -> String {
+    let open = "<script type=\"application/json\" id=\"fieldbook-record\">";
+    let start = html.find(open).expect("an embedded record");
+    let end = start + html[start..].find("</script>").expect("closed") + "</script>".len();
+    format!("{}{}", &html[..start], &html[end..])
+}
+
+/// `rec` written as JSON and read back, as its embedded copy was: serde_json's default float
+/// parser can miss a value in the last bit, so a record read from a file and embedded again is
+/// compared after the same trip.
+fn reparsed(rec: &Record) -> Record {
+    serde_json::from_str(&serde_json::to_string(rec).unwrap()).unwrap()
+}
+
+fn assert_self_contained(html: &str) {
+    let own = without_record(html);
+    assert!(!own.contains("http://") && !own.contains("https://"));
+    assert!(!own.contains("<script"), "a script besides the record");
+    assert!(!own.contains("<link") && !own.contains("@import") && !own.contains("url("));
+    assert_eq!(html.matches("<script").count(), 1);
+}
+
+#[test]
+fn example_reports_are_self_contained_and_embed_their_record() {
+    let dir = temp_dir("examples");
+    for name in [
+        "rabi-chevron",
+        "stirap",
+        "landau-zener",
+        "ramsey-light-shift",
+    ] {
+        let html = run(&example(name), &dir, None);
+        assert_self_contained(&html);
+        assert!(html.contains("fb-banner"), "{name}: no banner");
+        assert!(
+            html.contains("<table class=\"fb-checks\">"),
+            "{name}: no checks"
+        );
+        assert!(
+            html.contains("<details class=\"fb-source\">"),
+            "{name}: no sources"
+        );
+        assert!(
+            html.contains("<h2>Provenance</h2>"),
+            "{name}: no provenance"
+        );
+        let json = record::io::read(&dir.join(format!("{name}.record.json"))).unwrap();
+        assert!(
+            render::extract_record(&html).unwrap() == reparsed(&json),
+            "{name}: round trip"
+        );
+        if name != "landau-zener" {
+            let svg = html.find("<svg").expect("a figure");
+            let tag = &html[svg..svg + html[svg..].find('>').unwrap()];
+            assert!(
+                tag.contains("width=\"") && tag.contains("height=\""),
+                "{tag}"
+            );
+        }
+    }
+    let chevron = std::fs::read_to_string(dir.join("rabi-chevron.html")).unwrap();
+    assert!(chevron.contains("fb-figure fb-map"));
+    assert!(chevron.contains("delta/2π (kHz)"), "frequency axis in kHz");
+    assert!(chevron.contains("len (µs)"), "time axis in µs");
+    assert!(chevron.contains("All 3 checks held"));
+}
+
+#[test]
+fn rerun_and_diff_accept_the_html_report() {
+    let dir = temp_dir("rerun");
+    run(&example("landau-zener"), &dir, None);
+    let html = dir.join("landau-zener.html");
+    let json = dir.join("landau-zener.record.json");
+    let o = bin().arg("diff").arg(&html).arg(&json).output().unwrap();
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    let again = dir.join("again");
+    let o = bin()
+        .arg("rerun")
+        .arg(&html)
+        .arg("--out")
+        .arg(&again)
+        .arg("--cache")
+        .arg(dir.join("cache"))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    let child = record::io::read(&again.join("landau-zener.record.json")).unwrap();
+    let parent = record::io::read(&json).unwrap();
+    assert_eq!(
+        child.lineage.parent.as_deref(),
+        Some(parent.lineage.results_sha256.as_str())
+    );
+    let o = bin()
+        .arg("diff")
+        .arg(&html)
+        .arg(again.join("landau-zener.record.json"))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    let not_a_report = dir.join("plain.html");
+    std::fs::write(&not_a_report, "<html><body>hi</body></html>").unwrap();
+    let o = bin()
+        .arg("diff")
+        .arg(&not_a_report)
+        .arg(&json)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+}
+
+#[test]
+fn hostile_prose_is_sanitised_and_math_renders() {
+    let dir = temp_dir("prose");
+    let f = dir.join("hostile.md");
+    std::fs::write(
+        &f,
+        "# Hostile prose\n\n\
+         Text <script>alert(1)</script> and <b onclick=\"steal()\">bold</b>,\n\
+         [a link](javascript:alert(2)) and <a href=\"javascript:alert(3)\">another</a>.\n\
+         <img src=\"https://example.invalid/x.png\"> </script><script>alert(4)</script> <!-- c --> \\\\<x\n\n\
+         Inline $\\Omega^2/(\\Omega^2 + \\Delta^2)$ and display\n\n$$P = \\sin^2(\\theta/2)$$\n\n\
+         ```params\nrabi = \"2π × 1 MHz\"\n```\n",
+    )
+    .unwrap();
+    let html = run(&f, &dir, None);
+    let own = without_record(&html);
+    assert!(!own.contains("<script"), "{own}");
+    assert!(!own.contains("alert("), "{own}");
+    assert!(!own.contains("onclick"), "{own}");
+    assert!(!own.contains("javascript:"), "{own}");
+    assert!(!own.contains("example.invalid"), "{own}");
+    assert!(own.contains("<b>bold</b>"));
+    assert!(own.matches("<math").count() >= 2, "{own}");
+    assert!(own.contains("display=\"block\""));
+    // The record keeps the source as written and still reads back.
+    let rec = record::io::read(&dir.join("hostile.record.json")).unwrap();
+    assert!(render::extract_record(&html).unwrap() == reparsed(&rec));
+    assert!(
+        html.contains("<\\/script>"),
+        "the source's </script> is escaped in the record"
+    );
+    assert_eq!(html.matches("<script").count(), 1);
+}
+
+#[test]
+fn a_templates_folder_replaces_the_built_in_files() {
+    let dir = temp_dir("templates");
+    let t = dir.join("tpl");
+    std::fs::create_dir_all(&t).unwrap();
+    std::fs::write(t.join("style.css"), "/* house style marker */").unwrap();
+    std::fs::write(
+        t.join("report.html"),
+        "<html><head><style>{{style}}</style></head><body><h1>{{title}}</h1>{{body}}</body></html>",
+    )
+    .unwrap();
+    let html = run(&example("landau-zener"), &dir, Some(&t));
+    assert!(html.contains("house style marker"));
+    assert!(html.contains("<h1>Landau–Zener sweep of the Plover RF coil</h1>"));
+    // The template has no record placeholder; the record is embedded all the same.
+    assert!(render::extract_record(&html).is_ok());
+}
+
+fn column(label: &str, dim: [i8; 5], values: Vec<f64>) -> Column {
+    Column {
+        label: label.into(),
+        dim,
+        values,
+    }
+}
+
+/// A record with a 201 × 201 heat map and four line plots of three 201-point curves each, with
+/// the map's values also under `results` as a real run has them. The embedded record (about
+/// 1.7 MB of JSON, the map's grid stored twice) is most of the page.
+fn large_record() -> Record {
+    let n = 201;
+    let freq = [-1, 0, 0, 0, 0];
+    let time = [1, 0, 0, 0, 0];
+    let tau = std::f64::consts::TAU;
+    let delta: Vec<f64> = (0..n)
+        .map(|i| tau * (-100e3 + 200e3 * i as f64 / (n - 1) as f64))
+        .collect();
+    let len: Vec<f64> = (0..n)
+        .map(|j| 1e-6 + 59e-6 * j as f64 / (n - 1) as f64)
+        .collect();
+    let rabi = tau * 25e3;
+    let z: Vec<f64> = delta
+        .iter()
+        .flat_map(|d| {
+            len.iter().map(move |t| {
+                let w = (rabi * rabi + d * d).sqrt();
+                rabi * rabi / (w * w) * (w * t / 2.0).sin().powi(2)
+            })
+        })
+        .collect();
+    let mut cells = vec![CellRecord {
+        kind: "prose".into(),
+        name: None,
+        line: 1,
+        text: "# Synthetic\n\nA large report with $\\Omega t$.\n".into(),
+        output: None,
+    }];
+    cells.push(CellRecord {
+        kind: "plot".into(),
+        name: None,
+        line: 5,
+        text: "```plot\n```".into(),
+        output: Some(CellOutput::Map {
+            title: "chevron".into(),
+            x: column("chevron.delta", freq, delta.clone()),
+            y: column("len", time, len.clone()),
+            z: column("chevron.final.population(e)", [0; 5], z.clone()),
+        }),
+    });
+    let t: Vec<f64> = (0..201).map(|i| i as f64 * 5e-8).collect();
+    for p in 0..4 {
+        let curves = (0..3)
+            .map(|c| {
+                let f = (c + 1) as f64 * 1e6;
+                column(
+                    &format!("e{p}.population(l{c})"),
+                    [0; 5],
+                    t.iter().map(|t| (f * t).sin().powi(2)).collect(),
+                )
+            })
+            .collect();
+        cells.push(CellRecord {
+            kind: "plot".into(),
+            name: None,
+            line: 10 + p,
+            text: "```plot\n```".into(),
+            output: Some(CellOutput::Curves {
+                title: format!("plot {p}"),
+                x: column("time", time, t.clone()),
+                curves,
+                log_x: false,
+                log_y: p == 3,
+            }),
+        });
+    }
+    cells.push(CellRecord {
+        kind: "check".into(),
+        name: None,
+        line: 20,
+        text: "```check\n```".into(),
+        output: Some(CellOutput::Checks { indices: vec![0] }),
+    });
+    let result = EvolveResult {
+        axes: vec![
+            AxisResult {
+                name: "delta".into(),
+                dim: freq,
+                values: delta,
+            },
+            AxisResult {
+                name: "len".into(),
+                dim: time,
+                values: len,
+            },
+        ],
+        times: None,
+        observables: vec![ObsResult {
+            label: "population(e)".into(),
+            width: 1,
+            dim: [0; 5],
+            finals: z,
+            trace: None,
+        }],
+        solver: SolverInfo {
+            method: "eigen".into(),
+            reason: "constant Hamiltonian".into(),
+            rtol: 1e-8,
+            atol: 1e-10,
+            steps: 40401,
+            norm_drift: 1e-15,
+            frame: vec![],
+        },
+        steady: false,
+    };
+    Record {
+        format: record::FORMAT.into(),
+        version: record::VERSION,
+        name: "synthetic".into(),
+        source: SourceInfo {
+            file: "synthetic.md".into(),
+            text: "# Synthetic\n".into(),
+            sha256: record::sha256(b"# Synthetic\n"),
+        },
+        cells,
+        parameters: vec![ParamRecord {
+            name: "rabi".into(),
+            value: rabi,
+            dim: freq,
+            shown: "2π × 25.00 kHz".into(),
+            expr: "2π × 25 kHz".into(),
+            overridden: true,
+        }],
+        results: vec![NamedResult {
+            block: "chevron".into(),
+            result,
+        }],
+        checks: vec![CheckRecord {
+            path: "chevron.final.population(e)".into(),
+            line: 21,
+            got: 0.5,
+            dim: [0; 5],
+            shown: "0.5000".into(),
+            expected: "near 1 within 1e-6".into(),
+            passed: false,
+        }],
+        inline: vec![],
+        warnings: vec![],
+        errors: vec![],
+        lineage: Lineage::default(),
+        volatile: Volatile {
+            date: "2026-01-01T00:00:00Z".into(),
+            tool_version: "0.1.0".into(),
+            commit: "unknown".into(),
+            platform: "test".into(),
+            timings: vec![Timing {
+                block: "chevron".into(),
+                seconds: 0.25,
+                cached: false,
+            }],
+        },
+    }
+}
+
+#[test]
+fn a_large_report_renders_fast_and_stays_small() {
+    let rec = large_record();
+    let _warm = render::report(&rec, None).unwrap();
+    let best = (0..3)
+        .map(|_| {
+            let t0 = Instant::now();
+            let html = render::report(&rec, None).unwrap();
+            (t0.elapsed().as_secs_f64(), html)
+        })
+        .min_by(|a, b| a.0.total_cmp(&b.0))
+        .unwrap();
+    let (seconds, html) = best;
+    println!(
+        "201 × 201 map + 4 line plots: {:.1} ms, {:.2} MB ({} bytes; test profile)",
+        seconds * 1e3,
+        html.len() as f64 / 1e6,
+        html.len()
+    );
+    assert!(html.len() < 2_000_000, "{} bytes", html.len());
+    assert!(seconds < 1.5, "{seconds} s");
+    assert_self_contained(&html);
+    assert!(html.contains("1 of 1 checks failed"));
+    assert!(html.contains("set with --set"));
+    assert!(
+        render::extract_record(&html).unwrap() == reparsed(&rec),
+        "round trip"
+    );
+}
