@@ -167,7 +167,10 @@ mod tests {
     #[test]
     fn tex_the_converter_refuses_stays_visible_as_code() {
         let html = prose("broken $\\left( x$ here");
-        assert!(html.contains("<code class=\"math\">\\left( x</code>"), "{html}");
+        assert!(
+            html.contains("<code class=\"math\">\\left( x</code>"),
+            "{html}"
+        );
     }
 
     #[test]
