@@ -47,7 +47,8 @@ options of run and check:
 options of run:
        --no-cache           recompute every evolve block
        --cache DIR          keep cached results in DIR (default: .fieldbook-cache beside each file)
-       --out DIR            write DIR/NAME.record.json (atomically)
+       --out DIR            write DIR/NAME.record.json and the report DIR/NAME.html (atomically)
+       --templates DIR      take report.html and style.css from DIR where present
        --force              replace a record of a different input in --out
        fieldbook --version";
 
@@ -57,6 +58,7 @@ struct Args {
     overrides: Vec<(String, String)>,
     cache: Option<Option<PathBuf>>,
     out: Option<PathBuf>,
+    templates: Option<PathBuf>,
     force: bool,
     tolerance: record::diff::Tolerance,
 }
@@ -70,6 +72,7 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
         overrides: vec![],
         cache: None,
         out: None,
+        templates: None,
         force: false,
         tolerance: record::diff::Tolerance::default(),
     };
@@ -89,6 +92,8 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
             out.cache = Some(None);
         } else if a == "--out" {
             out.out = Some(it.next().ok_or("--out needs a folder")?.into());
+        } else if a == "--templates" {
+            out.templates = Some(it.next().ok_or("--templates needs a folder")?.into());
         } else if a == "--rtol" || a == "--atol" {
             let v = it.next().ok_or_else(|| format!("{a} needs a number"))?;
             let x: f64 = v
@@ -338,6 +343,20 @@ fn run_source(
             Ok(p) => say!("record: {}", p.display()),
             Err(e) => {
                 eprintln!("error: {e}");
+                return INPUT_ERROR;
+            }
+        }
+        // Written only once the record is, so a refused record (another input) keeps its report.
+        let html = dir.join(format!("{}.html", rec.name));
+        let written = fieldbook::render::report(&rec, args.templates.as_deref())
+            .map_err(|e| e.to_string())
+            .and_then(|page| {
+                record::io::write_atomic(&html, page.as_bytes()).map_err(|e| e.to_string())
+            });
+        match written {
+            Ok(()) => say!("report: {}", html.display()),
+            Err(e) => {
+                eprintln!("error: report {}: {e}", html.display());
                 return INPUT_ERROR;
             }
         }
