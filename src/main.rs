@@ -50,6 +50,7 @@ options of run:
        --out DIR            write DIR/NAME.record.json and the report DIR/NAME.html (atomically)
        --templates DIR      take report.html and style.css from DIR where present
        --force              replace a record of a different input in --out
+       --csv                with --out: also write every plotted or tabulated series as CSV
        fieldbook --version";
 
 struct Args {
@@ -60,6 +61,7 @@ struct Args {
     out: Option<PathBuf>,
     templates: Option<PathBuf>,
     force: bool,
+    csv: bool,
     tolerance: record::diff::Tolerance,
 }
 
@@ -74,6 +76,7 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
         out: None,
         templates: None,
         force: false,
+        csv: false,
         tolerance: record::diff::Tolerance::default(),
     };
     while let Some(a) = it.next() {
@@ -108,6 +111,8 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
             }
         } else if a == "--force" {
             out.force = true;
+        } else if a == "--csv" {
+            out.csv = true;
         } else if a == "--cache" {
             out.cache = Some(Some(it.next().ok_or("--cache needs a folder")?.into()));
         } else if a.starts_with("--") {
@@ -360,6 +365,18 @@ fn run_source(
                 return INPUT_ERROR;
             }
         }
+        if args.csv {
+            match record::csv::write_all(dir, &rec) {
+                Ok(paths) => paths.iter().for_each(|p| say!("csv: {}", p.display())),
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    return INPUT_ERROR;
+                }
+            }
+        }
+    } else if args.csv {
+        eprintln!("error: --csv needs --out DIR");
+        return INPUT_ERROR;
     }
     if !result.errors.is_empty() {
         RUNTIME_FAILURE

@@ -234,3 +234,34 @@ fn a_killed_run_leaves_the_previous_record_intact() {
     names.sort();
     assert_eq!(names, ["chevron.html", "chevron.record.json"], "{names:?}");
 }
+
+/// `--csv` writes every plotted or tabulated series next to the record, with units in the
+/// headers and the record's own numbers in the rows.
+#[test]
+fn csv_export_holds_the_recorded_series() {
+    let dir = temp_dir("csv");
+    let f = dir.join("chevron.md");
+    std::fs::write(&f, example("rabi-chevron.md")).unwrap();
+    let out = dir.join("out");
+    let o = run(&f, &out, &["--csv"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let csv = std::fs::read_to_string(out.join("chevron-plot-line45.csv")).unwrap();
+    let mut lines = csv.lines();
+    assert_eq!(
+        lines.next(),
+        Some("\"chevron.delta [s⁻¹]\",\"len [s]\",\"chevron.final.population(e)\"")
+    );
+    let rows: Vec<Vec<f64>> = lines
+        .map(|l| l.split(',').map(|x| x.parse().unwrap()).collect())
+        .collect();
+    assert_eq!(rows.len(), 81 * 60);
+    let rec: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("chevron.record.json")).unwrap()).unwrap();
+    let finals = &rec["results"][0]["result"]["observables"][0]["finals"];
+    // The map is stored delta-major like the sweep (delta is the outer axis), so row k is point k.
+    for k in [0, 1, 777, 4859] {
+        assert_eq!(rows[k][2], finals[k].as_f64().unwrap());
+    }
+    let o = bin().arg("run").arg(&f).arg("--csv").output().unwrap();
+    assert_eq!(o.status.code(), Some(2), "--csv without --out is refused");
+}

@@ -3,6 +3,7 @@
 //! kernel's; everything a re-run or a diff needs is here, and everything that changes from run to
 //! run without the input changing (date, timings, platform) sits in `volatile`.
 
+pub mod csv;
 pub mod diff;
 pub mod io;
 
