@@ -49,6 +49,7 @@ pub mod observe;
 pub mod ode;
 pub mod sequence;
 pub mod solve;
+pub mod species;
 pub mod state;
 pub mod sweep;
 pub mod zeeman;
