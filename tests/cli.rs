@@ -1,39 +1,11 @@
 //! End-to-end tests of the `fieldbook` command: every example checks and runs with its checks
 //! holding, exit codes, `--set`, and the result cache.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::*;
+
+use std::path::Path;
 use std::time::Instant;
-
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_fieldbook"))
-}
-
-fn examples() -> Vec<PathBuf> {
-    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("notebooks-spec/examples");
-    let mut v: Vec<PathBuf> = std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .filter(|p| p.extension().is_some_and(|x| x == "md"))
-        .collect();
-    v.sort();
-    v
-}
-
-fn text(o: &Output) -> String {
-    format!(
-        "{}{}",
-        String::from_utf8_lossy(&o.stdout),
-        String::from_utf8_lossy(&o.stderr)
-    )
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("fieldbook-cli-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
 
 #[test]
 fn every_example_checks_clean_and_fast() {

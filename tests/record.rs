@@ -2,30 +2,12 @@
 //! (volatile fields aside), readable with independently declared types, never silently replaced
 //! by the record of another input, and left intact by a killed run.
 
-use std::path::{Path, PathBuf};
-use std::process::Command;
+mod common;
+use common::*;
+
+use std::path::Path;
 
 use serde::Deserialize;
-
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_fieldbook"))
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("fieldbook-record-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn example(name: &str) -> String {
-    std::fs::read_to_string(
-        Path::new(env!("CARGO_MANIFEST_DIR"))
-            .join("notebooks-spec/examples")
-            .join(name),
-    )
-    .unwrap()
-}
 
 // Declared here, apart from `src/record`, so that a change of the wire format shows up as a
 // failing test rather than drifting silently (the fields RECORD.md promises).

@@ -3,8 +3,10 @@
 //! and checks, embeds exactly the record beside it, and can be re-run and diffed; hostile prose
 //! is sanitised, math becomes MathML; a large synthetic record renders fast and stays small.
 
+mod common;
+use common::*;
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
 use std::time::Instant;
 
 use fieldbook::kernel::results::{AxisResult, EvolveResult, ObsResult, SolverInfo};
@@ -13,25 +15,6 @@ use fieldbook::record::{
     SourceInfo, Timing, Volatile,
 };
 use fieldbook::render;
-
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_fieldbook"))
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("fieldbook-render-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn text(o: &Output) -> String {
-    format!(
-        "{}{}",
-        String::from_utf8_lossy(&o.stdout),
-        String::from_utf8_lossy(&o.stderr)
-    )
-}
 
 fn example(name: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join(format!("notebooks-spec/examples/{name}.md"))

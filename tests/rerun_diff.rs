@@ -2,27 +2,10 @@
 //! parameter, what depends on it and the results it moved, and nothing else; a record compared
 //! with itself or with an unchanged re-run is equal.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::*;
 
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_fieldbook"))
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("fieldbook-rerun-{name}-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn text(o: &Output) -> String {
-    format!(
-        "{}{}",
-        String::from_utf8_lossy(&o.stdout),
-        String::from_utf8_lossy(&o.stderr)
-    )
-}
+use std::path::Path;
 
 #[test]
 fn rerun_then_diff_shows_the_change_and_only_the_change() {

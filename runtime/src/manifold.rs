@@ -244,33 +244,12 @@ impl Line {
 mod tests {
     use super::*;
     use crate::atom::E_A0;
-    use std::f64::consts::TAU;
 
-    /// ⁸⁷Rb D2: λ = 780.241 209 686 nm, Γ = 2π × 6.0666 MHz, 5²P₃/₂ A = h × 84.7185 MHz,
-    /// B = h × 12.4965 MHz, g_J' = 1.3362 (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021,
-    /// tables 3–7; recalled from there).
+    /// ⁸⁷Rb D2 from the species table (Steck's ⁸⁷Rb notes, recalled; `notebooks-spec/SPECIES.md`).
     pub(crate) fn rb87_d2() -> Line {
-        let gi = -0.000_995_141_4;
-        Line {
-            ground: Hyperfine {
-                two_j: 1,
-                two_i: 3,
-                a: TAU * 3.417_341_305_452_15e9,
-                b: 0.0,
-                g_j: 2.002_331_13,
-                g_i: gi,
-            },
-            excited: Hyperfine {
-                two_j: 3,
-                two_i: 3,
-                a: TAU * 84.7185e6,
-                b: TAU * 12.4965e6,
-                g_j: 1.3362,
-                g_i: gi,
-            },
-            omega: TAU * C_LIGHT / 780.241_209_686e-9,
-            gamma: TAU * 6.0666e6,
-        }
+        crate::species::Species::named("87Rb")
+            .and_then(|s| s.line(crate::species::DLine::D2).ok())
+            .expect("87Rb D2 in the species table")
     }
 
     /// The reduced element and the σ⁺ cycling saturation intensity of ⁸⁷Rb D2:

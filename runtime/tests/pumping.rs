@@ -3,9 +3,9 @@
 
 use std::f64::consts::TAU;
 
-use fieldbook_runtime::field::C_LIGHT;
 use fieldbook_runtime::manifold::Line;
 use fieldbook_runtime::prelude::*;
+use fieldbook_runtime::species::{DLine, Species};
 use fieldbook_runtime::zeeman::Hyperfine;
 
 fn transition(atom: &Atom, lower: usize, upper: usize) -> usize {
@@ -15,34 +15,14 @@ fn transition(atom: &Atom, lower: usize, upper: usize) -> usize {
         .expect("transition")
 }
 
-/// ⁸⁷Rb D2 (constants of Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, recalled), F = 2 → F' = 3
+/// ⁸⁷Rb D2 (the species table, `notebooks-spec/SPECIES.md`), F = 2 → F' = 3
 /// only (the closed cycling manifold), at zero field. σ⁺ light pumps every F = 2 sublevel into the stretched |2, 2⟩, which then
 /// cycles on |2, 2⟩ ↔ |3', 3'⟩ as a two-level atom (common practice): in the steady state
 /// ρ(3', 3') = (s/2)/(1 + s + 4Δ²/Γ²) with s = 2Ω²/Γ² (Foot, *Atomic Physics*, 2005, ch. 7),
 /// ρ(2, 2) the rest, every other sublevel empty. Tolerance 1e-9: a linear solve.
 #[test]
 fn sigma_plus_pumps_into_the_stretched_state() {
-    let gi = -0.000_995_141_4;
-    let line = Line {
-        ground: Hyperfine {
-            two_j: 1,
-            two_i: 3,
-            a: TAU * 3.417_341_305_452_15e9,
-            b: 0.0,
-            g_j: 2.002_331_13,
-            g_i: gi,
-        },
-        excited: Hyperfine {
-            two_j: 3,
-            two_i: 3,
-            a: TAU * 84.7185e6,
-            b: TAU * 12.4965e6,
-            g_j: 1.3362,
-            g_i: gi,
-        },
-        omega: TAU * C_LIGHT / 780.241_209_686e-9,
-        gamma: TAU * 6.0666e6,
-    };
+    let line = Species::named("87Rb").unwrap().line(DLine::D2).unwrap();
     let la = line
         .expand(0.0, |two_f| two_f == 4, |two_fp| two_fp == 6)
         .unwrap();
