@@ -154,6 +154,20 @@ pub fn eval(
                 )
             })
     };
+    let no_trace = || {
+        (
+            path.target_span.clone(),
+            format!("`{}` recorded no time trace", path.block),
+            Some("set `samples = N` in the evolve block (without a sweep)".to_string()),
+        )
+    };
+    let time_axis = || {
+        r.times.as_ref().ok_or_else(no_trace).map(|t| AxisResult {
+            name: "time".into(),
+            dim: Dim::TIME.0,
+            values: t.clone(),
+        })
+    };
     // Values over a grid of axes (shape), then `at` selections cut it down.
     let (mut axes, mut data, dim): (Vec<AxisResult>, Vec<f64>, Dim) = match &path.target {
         Target::Final(o, c) => {
@@ -166,33 +180,12 @@ pub fn eval(
         }
         Target::Trace(o, c) => {
             let x = find_obs(o)?;
-            let (Some(times), Some(tr)) = (&r.times, &x.trace) else {
-                return Err((
-                    path.target_span.clone(),
-                    format!("`{}` recorded no time trace", path.block),
-                    Some("set `samples = N` in the evolve block (without a sweep)".into()),
-                ));
-            };
-            let ax = AxisResult {
-                name: "time".into(),
-                dim: Dim::TIME.0,
-                values: times.clone(),
-            };
+            let ax = time_axis()?;
+            let tr = x.trace.as_ref().ok_or_else(no_trace)?;
             (vec![ax], component(c.as_deref(), tr, x.width), Dim(x.dim))
         }
         Target::Time => {
-            let Some(times) = &r.times else {
-                return Err((
-                    path.target_span.clone(),
-                    format!("`{}` recorded no time trace", path.block),
-                    Some("set `samples = N` in the evolve block (without a sweep)".into()),
-                ));
-            };
-            let ax = AxisResult {
-                name: "time".into(),
-                dim: Dim::TIME.0,
-                values: times.clone(),
-            };
+            let ax = time_axis()?;
             (vec![ax.clone()], ax.values, Dim::TIME)
         }
         Target::Axis(a) => {

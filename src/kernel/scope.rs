@@ -387,20 +387,9 @@ fn order_block(
         let mut stack = Vec::new();
         visit(i, &local, &index, &mut mark, &mut stack, &mut out, diags);
     }
-    // A cycle reported once per entry point would repeat; keep the first report of each.
-    let mut seen = std::collections::HashSet::new();
-    let mut k = before;
-    while k < diags.len() {
-        if !seen.insert(diags[k].message.clone())
-            || (k > before
-                && diags[k].message.contains("cycle")
-                && diags[before..k].iter().any(|d| d.message.contains("cycle")))
-        {
-            diags.remove(k);
-        } else {
-            k += 1;
-        }
-    }
+    // Only cycles are reported by the walk, and one cycle is met again from each of its
+    // members: keep the first report.
+    diags.truncate(before + 1);
     let cyclic = diags.len() > before;
     for i in out {
         if good[i] && !cyclic {
