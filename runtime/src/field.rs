@@ -107,6 +107,58 @@ impl Polarization {
         Self::new([(ex + i * ey) * s, ez, -(ex - i * ey) * s])
     }
 
+    /// Linear polarisation at angle `theta` (rad) from the quantisation axis, tilted towards the
+    /// axis frame's x: ε = cos θ e_z + sin θ e_x, so ε^0 = cos θ and ε^{±1} = ∓ sin θ / √2
+    /// (e_x = (e_{−1} − e_{+1})/√2 in the basis of the type docs). θ = 0 is π light, θ = 90° an
+    /// equal mix of σ⁺ and σ⁻. Fails on a non-finite angle.
+    pub fn linear_at(theta: f64) -> Result<Self, Error> {
+        if !theta.is_finite() {
+            return Err(Error::NonFinite {
+                what: "the polarisation angle".into(),
+            });
+        }
+        let s = theta.sin() * std::f64::consts::FRAC_1_SQRT_2;
+        Self::new([
+            C64::new(s, 0.0),
+            C64::new(theta.cos(), 0.0),
+            C64::new(-s, 0.0),
+        ])
+    }
+
+    /// Elliptical light travelling along `direction` (lab frame) with its major axis along
+    /// `major` (perpendicular to `direction`) and ellipticity angle `chi` (rad):
+    /// ε = cos χ â + i sin χ (k̂ × â). χ = 0 is linear along `major`; χ = +45° is circular with
+    /// positive helicity about k̂ (σ⁺ when k̂ points along the quantisation axis, σ⁻ when
+    /// against it); χ = −45° the opposite. Returned relative to the quantisation axis `axis` as
+    /// by [`Polarization::from_cartesian`]. Fails when a vector is zero or non-finite, or when
+    /// `major` is not perpendicular to `direction` (to 1e-9 of their lengths).
+    pub fn elliptical(
+        major: [f64; 3],
+        direction: [f64; 3],
+        chi: f64,
+        axis: [f64; 3],
+    ) -> Result<Self, Error> {
+        let a = unit(major, "the polarisation's major axis")?;
+        let k = unit(direction, "the beam direction")?;
+        if !chi.is_finite() {
+            return Err(Error::NonFinite {
+                what: "the ellipticity angle".into(),
+            });
+        }
+        let dot = a[0] * k[0] + a[1] * k[1] + a[2] * k[2];
+        if dot.abs() > 1e-9 {
+            return Err(Error::OutOfRange {
+                what: "the angle between the polarisation and the beam direction (cosine)".into(),
+                value: dot,
+                hint: "light is transverse: give a polarisation vector perpendicular to the beam direction",
+            });
+        }
+        let b = cross(k, a);
+        let (c, s) = (chi.cos(), chi.sin());
+        let e = [0, 1, 2].map(|i| C64::new(c * a[i], s * b[i]));
+        Self::from_cartesian(e, axis)
+    }
+
     /// The components ε^q, q = −1, 0, +1.
     pub fn components(&self) -> [C64; 3] {
         self.0
@@ -124,6 +176,38 @@ impl Polarization {
     }
 }
 
+/// `v` divided by its length; fails on a zero or non-finite vector named `what`.
+pub(crate) fn unit(v: [f64; 3], what: &str) -> Result<[f64; 3], Error> {
+    let n = (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt();
+    if !n.is_finite() {
+        return Err(Error::NonFinite { what: what.into() });
+    }
+    if n == 0.0 {
+        return Err(Error::OutOfRange {
+            what: format!("the length of {what}"),
+            value: 0.0,
+            hint: "give a non-zero direction",
+        });
+    }
+    Ok(v.map(|c| c / n))
+}
+
+fn cross(a: [f64; 3], b: [f64; 3]) -> [f64; 3] {
+    [
+        a[1] * b[2] - a[2] * b[1],
+        a[2] * b[0] - a[0] * b[2],
+        a[0] * b[1] - a[1] * b[0],
+    ]
+}
+
+/// The saturation intensity (W/m²) of a transition whose upper level decays at `gamma` (1/s),
+/// for light whose coupling element is `d` = ⟨u|d·ε|l⟩ (C·m): I_sat = c ε₀ Γ² ħ² / (4 |d|²), so
+/// that I / I_sat = 2 Ω² / Γ² (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, eqs. 49–50;
+/// from memory). For the σ⁺ cycling line of ⁸⁷Rb D2 this is 1.669 mW/cm².
+pub fn saturation_intensity(gamma: f64, d: C64) -> f64 {
+    C_LIGHT * EPSILON_0 * gamma * gamma * HBAR * HBAR / (4.0 * d.norm_sqr())
+}
+
 /// How strong the field is.
 #[derive(Clone, Debug, PartialEq)]
 pub enum Strength {
@@ -139,6 +223,16 @@ pub enum Strength {
     ElectricField(f64),
     /// Intensity I = ½ c ε₀ E₀² (W/m²).
     Intensity(f64),
+    /// Saturation parameter s = I / I_sat of a transition (dimensionless), with I_sat that of
+    /// the transition for this field's polarisation ([`saturation_intensity`]) and Γ the total
+    /// decay rate of its upper level: the Rabi frequency there is Ω = Γ √(s/2), real and
+    /// positive at phase 0 as for [`Strength::Rabi`].
+    Saturation {
+        /// The reference transition.
+        transition: TransitionId,
+        /// s = I / I_sat.
+        s: f64,
+    },
 }
 
 /// A time-dependent frequency offset δ(t) (rad/s) of the carrier; its phase χ(t) = ∫₀ᵗ δ.
@@ -230,6 +324,7 @@ pub struct Field {
     phase: f64,
     chirp: Option<Chirp>,
     linewidth: f64,
+    direction: Option<[f64; 3]>,
 }
 
 impl Field {
@@ -243,6 +338,7 @@ impl Field {
             phase: 0.0,
             chirp: None,
             linewidth: 0.0,
+            direction: None,
         }
     }
     /// Set the polarisation.
@@ -264,6 +360,55 @@ impl Field {
     pub fn with_linewidth(mut self, linewidth: f64) -> Self {
         self.linewidth = linewidth;
         self
+    }
+    /// Set the beam direction (lab frame; normalised here), which gives the Doppler shift of a
+    /// moving atom ([`Field::doppler_shifted`]). Fails on a zero or non-finite vector.
+    pub fn with_direction(mut self, direction: [f64; 3]) -> Result<Self, Error> {
+        self.direction = Some(unit(direction, "the beam direction")?);
+        Ok(self)
+    }
+    /// The beam direction (unit vector, lab frame), if set.
+    pub fn direction(&self) -> Option<[f64; 3]> {
+        self.direction
+    }
+
+    /// The field as an atom moving at `velocity` (m/s, lab frame) sees it: the carrier shifted by
+    /// the first-order Doppler shift −k·v, k = (ω/c) k̂ (common practice; the second-order
+    /// shift, of relative size v²/2c², is neglected). A detuning-referenced carrier keeps its
+    /// reference and changes its detuning. Fails when the field has no direction and the
+    /// velocity is not zero, or when a value is not finite.
+    pub fn doppler_shifted(&self, atom: &Atom, velocity: [f64; 3]) -> Result<Field, Error> {
+        if velocity.iter().any(|v| !v.is_finite()) {
+            return Err(Error::NonFinite {
+                what: format!("the atom's velocity seen by field `{}`", self.name),
+            });
+        }
+        if velocity == [0.0; 3] {
+            return Ok(self.clone());
+        }
+        let Some(k) = self.direction else {
+            return Err(Error::Inconsistent {
+                what: format!(
+                    "field `{}` has no direction, so a moving atom's Doppler shift is undefined",
+                    self.name
+                ),
+                hint: "give the field a beam direction".into(),
+            });
+        };
+        let w = self.frequency(atom)?;
+        let shift = -w / C_LIGHT * (k[0] * velocity[0] + k[1] * velocity[1] + k[2] * velocity[2]);
+        let mut out = self.clone();
+        out.carrier = match &self.carrier {
+            Carrier::Frequency(w) => Carrier::Frequency(w + shift),
+            Carrier::Detuning {
+                transition,
+                detuning,
+            } => Carrier::Detuning {
+                transition: *transition,
+                detuning: detuning + shift,
+            },
+        };
+        Ok(out)
     }
     /// The field's name.
     pub fn name(&self) -> &str {
@@ -297,7 +442,8 @@ impl Field {
     /// The transition the field is referenced to (by its strength, else by its carrier).
     pub fn reference(&self) -> Option<TransitionId> {
         match (&self.strength, &self.carrier) {
-            (Strength::Rabi { transition, .. }, _) => Some(*transition),
+            (Strength::Rabi { transition, .. }, _)
+            | (Strength::Saturation { transition, .. }, _) => Some(*transition),
             (_, Carrier::Detuning { transition, .. }) => Some(*transition),
             _ => None,
         }
@@ -364,6 +510,29 @@ impl Field {
                     });
                 }
                 Ok(rabi / a)
+            }
+            Strength::Saturation { transition, s } => {
+                let s = check("saturation parameter", *s)?;
+                let tr = atom.transition(*transition)?;
+                let a = self.polarization.absorbing(&tr.dipole());
+                if a.norm() == 0.0 {
+                    return Err(Error::ReferenceNotDriven {
+                        field: self.name.clone(),
+                        transition: atom.transition_label(*transition),
+                    });
+                }
+                let gamma = atom.total_decay_rates()[tr.upper()];
+                if gamma <= 0.0 {
+                    return Err(Error::OutOfRange {
+                        what: format!(
+                            "the decay rate of the upper level of {}, which a saturation parameter needs",
+                            atom.transition_label(*transition)
+                        ),
+                        value: gamma,
+                        hint: "give the strength as a Rabi frequency, a field or an intensity, or let the upper level decay",
+                    });
+                }
+                Ok(gamma * (s / 2.0).sqrt() / a)
             }
             Strength::ElectricField(e0) => Ok(C64::new(-check("electric field", *e0)? / HBAR, 0.0)),
             Strength::Intensity(i) => {
@@ -543,5 +712,136 @@ mod tests {
         );
         assert!(matches!(f.frequency(&atom), Err(Error::OutOfRange { .. })));
         assert!(Polarization::new([C64::new(0.0, 0.0); 3]).is_err());
+    }
+
+    /// Linear light tilted by θ from the axis: |ε^0|² = cos²θ and |ε^{±1}|² = sin²θ/2 (the
+    /// rank-1 rotation matrix d¹_{q0}(θ), Edmonds, *Angular Momentum in Quantum Mechanics*,
+    /// 1957, table 4.1), and the same as the Cartesian vector (sin θ, 0, cos θ).
+    #[test]
+    fn linear_polarisation_at_an_angle() {
+        for theta in [0.0, 0.3, 1.0, std::f64::consts::FRAC_PI_2] {
+            let p = Polarization::linear_at(theta).unwrap().components();
+            assert!((p[1].norm_sqr() - theta.cos().powi(2)).abs() < 1e-15);
+            for q in [0, 2] {
+                assert!((p[q].norm_sqr() - theta.sin().powi(2) / 2.0).abs() < 1e-15);
+            }
+            let v = Polarization::from_cartesian(
+                [c(theta.sin(), 0.0), c(0.0, 0.0), c(theta.cos(), 0.0)],
+                [0.0, 0.0, 1.0],
+            )
+            .unwrap()
+            .components();
+            for q in 0..3 {
+                assert!((p[q] - v[q]).norm() < 1e-15, "{theta}: {p:?} vs {v:?}");
+            }
+        }
+        assert!(Polarization::linear_at(f64::NAN).is_err());
+    }
+
+    /// Positive helicity about the beam is σ⁺ for a beam along the quantisation axis and σ⁻ for
+    /// one against it; χ = 0 is linear; the polarisation must be transverse (common practice).
+    #[test]
+    fn elliptical_light_and_helicity() {
+        let z = [0.0, 0.0, 1.0];
+        let q45 = std::f64::consts::FRAC_PI_4;
+        let weights = |p: Polarization| p.components().map(|x| x.norm_sqr());
+        let close = |a: [f64; 3], b: [f64; 3]| (0..3).all(|i| (a[i] - b[i]).abs() < 1e-15);
+        let along = Polarization::elliptical([1.0, 0.0, 0.0], z, q45, z).unwrap();
+        assert!(close(weights(along), [0.0, 0.0, 1.0]));
+        let against = Polarization::elliptical([1.0, 0.0, 0.0], [0.0, 0.0, -2.0], q45, z).unwrap();
+        assert!(close(weights(against), [1.0, 0.0, 0.0]));
+        let neg = Polarization::elliptical([0.0, 1.0, 0.0], z, -q45, z).unwrap();
+        assert!(close(weights(neg), [1.0, 0.0, 0.0]));
+        // A beam along x, linear along z: π light.
+        let lin = Polarization::elliptical(z, [1.0, 0.0, 0.0], 0.0, z).unwrap();
+        assert!(close(weights(lin), [0.0, 1.0, 0.0]));
+        // Ellipticity χ: the σ± weights are (1 ± sin 2χ)/2 for a beam along the axis.
+        let chi = 0.2;
+        let e = Polarization::elliptical([1.0, 0.0, 0.0], z, chi, z).unwrap();
+        let w = weights(e);
+        assert!((w[2] - (1.0 + (2.0 * chi).sin()) / 2.0).abs() < 1e-15);
+        assert!((w[0] - (1.0 - (2.0 * chi).sin()) / 2.0).abs() < 1e-15);
+        assert!(Polarization::elliptical([1.0, 0.0, 0.1], z, 0.0, z).is_err());
+        assert!(Polarization::elliptical([0.0; 3], z, 0.0, z).is_err());
+    }
+
+    /// A moving atom sees the carrier at ω − k·v (first-order Doppler shift, common practice):
+    /// an atom moving towards the source (v antiparallel to k) sees it blue-shifted by ω v/c.
+    #[test]
+    fn doppler_shift_of_a_moving_atom() {
+        let atom = two_level();
+        let f = Field::new(
+            "probe",
+            Carrier::Detuning {
+                transition: 0,
+                detuning: 1e6,
+            },
+            Strength::Intensity(1.0),
+        );
+        assert!(f.doppler_shifted(&atom, [0.0, 0.0, 1.0]).is_err());
+        assert!(f.doppler_shifted(&atom, [0.0; 3]).is_ok());
+        let f = f.with_direction([0.0, 0.0, 3.0]).unwrap();
+        let w = f.frequency(&atom).unwrap();
+        let v = 0.25;
+        let towards = f.doppler_shifted(&atom, [0.0, 0.0, -v]).unwrap();
+        // Compared on the detuning: the absolute frequencies would cancel to 1e-7.
+        let Carrier::Detuning { detuning, .. } = towards.carrier() else {
+            panic!("the carrier keeps its reference")
+        };
+        let shift = detuning - 1e6;
+        assert!((shift / (w * v / C_LIGHT) - 1.0).abs() < 1e-9, "{shift}");
+        // Perpendicular motion: no first-order shift.
+        let across = f.doppler_shifted(&atom, [v, 0.0, 0.0]).unwrap();
+        assert_eq!(across.frequency(&atom).unwrap(), w);
+        let abs = Field::new("x", Carrier::Frequency(w), Strength::Intensity(1.0))
+            .with_direction([1.0, 0.0, 0.0])
+            .unwrap()
+            .doppler_shifted(&atom, [v, 0.0, 0.0])
+            .unwrap();
+        assert!((abs.frequency(&atom).unwrap() - (w - w * v / C_LIGHT)).abs() < 1.0);
+        assert!(
+            Field::new("x", Carrier::Frequency(w), Strength::Intensity(1.0))
+                .with_direction([0.0; 3])
+                .is_err()
+        );
+    }
+
+    /// A saturation parameter s gives Ω = Γ √(s/2) on the reference transition, i.e.
+    /// s = 2Ω²/Γ² (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, eq. 49; from memory), and
+    /// it is the same field as the intensity s · I_sat.
+    #[test]
+    fn saturation_parameter_sets_the_rabi_frequency() {
+        let gamma = 2.0e7;
+        let mut b = Atom::builder();
+        let g = b.level("g", 0.0);
+        let e = b.level("e", 2.0e15);
+        b.transition(g, e);
+        b.decay(e, g, gamma);
+        let atom = b.build().unwrap();
+        let s = 3.0;
+        let f = Field::new(
+            "probe",
+            Carrier::Detuning {
+                transition: 0,
+                detuning: 0.0,
+            },
+            Strength::Saturation { transition: 0, s },
+        );
+        let d = atom.transitions()[0].dipole();
+        let factor = f.field_factor(&atom).unwrap();
+        let rabi = factor * f.polarization().absorbing(&d);
+        assert!((rabi.re / (gamma * (s / 2.0).sqrt()) - 1.0).abs() < 1e-14 && rabi.im.abs() < 1e-6);
+        let isat = saturation_intensity(gamma, f.polarization().absorbing(&d));
+        let by_intensity = Field::new(
+            "probe",
+            Carrier::Frequency(2.0e15),
+            Strength::Intensity(s * isat),
+        )
+        .field_factor(&atom)
+        .unwrap();
+        assert!((by_intensity.norm() / factor.norm() - 1.0).abs() < 1e-12);
+        // No decay, no saturation intensity.
+        let undamped = two_level();
+        assert!(f.field_factor(&undamped).is_err());
     }
 }

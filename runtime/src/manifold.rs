@@ -38,7 +38,8 @@ pub struct SublevelLabel {
     pub two_f: i32,
     /// 2m_F (exact: m is conserved along the field).
     pub two_m: i32,
-    /// The level's name in the atom, e.g. `g2_m-1` or `e3_m3`.
+    /// The level's name in the atom: `g` (lower manifold) or `e` (upper), F, `_m`, m, with
+    /// half-integers as fractions: `g2_m-1`, `e3_m3`, `g9/2_m-7/2`.
     pub name: String,
 }
 
@@ -60,11 +61,12 @@ impl LineAtom {
     }
 }
 
+/// A doubled angular momentum as written in level names: `2`, `-1`, `3/2`, `-1/2`.
 fn half_name(twice: i32) -> String {
     if twice % 2 == 0 {
         format!("{}", twice / 2)
     } else {
-        format!("{twice}half")
+        format!("{twice}/2")
     }
 }
 
@@ -81,26 +83,14 @@ fn fine_element(two_j: i32, two_mj: i32, two_jp: i32, two_mjp: i32, q: i32) -> f
 
 /// The zero-field hyperfine level 2F each sublevel connects to. Within one m block levels never
 /// cross as the field grows (they share every symmetry), so the k-th lowest sublevel of a block
-/// belongs to the k-th lowest zero-field level F ≥ |m| — the zero-field energies coming from the
-/// closed form E_F = A K/2 + B [3K(K+1)/2 − 2I(I+1)J(J+1)]/[4I(2I−1)J(2J−1)],
-/// K = F(F+1) − I(I+1) − J(J+1) (Steck eq. 16).
+/// belongs to the k-th lowest zero-field level F ≥ |m| ([`Hyperfine::zero_field_energy`]).
 fn zero_field_labels(m: &Hyperfine, levels: &[crate::zeeman::Sublevel]) -> Vec<i32> {
-    let (i, j) = (f64::from(m.two_i) / 2.0, f64::from(m.two_j) / 2.0);
-    let energy = |two_f: i32| {
-        let f = f64::from(two_f) / 2.0;
-        let k = f * (f + 1.0) - i * (i + 1.0) - j * (j + 1.0);
-        let quad = if m.two_i >= 2 && m.two_j >= 2 {
-            m.b * (1.5 * k * (k + 1.0) - 2.0 * i * (i + 1.0) * j * (j + 1.0))
-                / (4.0 * i * (2.0 * i - 1.0) * j * (2.0 * j - 1.0))
-        } else {
-            0.0
-        };
-        m.a * k / 2.0 + quad
-    };
+    let energy = |two_f: i32| m.zero_field_energy(two_f).unwrap_or(0.0);
     let mut out = vec![0; levels.len()];
     for two_m in (-(m.two_j + m.two_i)..=m.two_j + m.two_i).step_by(2) {
-        let mut fs: Vec<i32> = ((m.two_j - m.two_i).abs()..=(m.two_j + m.two_i))
-            .step_by(2)
+        let mut fs: Vec<i32> = m
+            .two_fs()
+            .into_iter()
             .filter(|f| two_m.abs() <= *f)
             .collect();
         fs.sort_by(|a, b| energy(*a).total_cmp(&energy(*b)));
@@ -116,6 +106,16 @@ fn zero_field_labels(m: &Hyperfine, levels: &[crate::zeeman::Sublevel]) -> Vec<i
 }
 
 impl Line {
+    /// The zero-field angular frequency (rad/s) of the hyperfine transition 2F → 2F' (the
+    /// line's centroid frequency plus the two levels' hyperfine shifts); `None` when either is
+    /// not a level of its manifold.
+    pub fn hyperfine_frequency(&self, two_f: i32, two_fp: i32) -> Option<f64> {
+        Some(
+            self.omega + self.excited.zero_field_energy(two_fp)?
+                - self.ground.zero_field_energy(two_f)?,
+        )
+    }
+
     /// |⟨J‖e r‖J'⟩| (C·m) from Γ and ω.
     pub fn reduced_dipole(&self) -> f64 {
         let (j, jp) = (
@@ -319,5 +319,24 @@ mod tests {
         // The full D2 manifold: 8 ground and 16 excited sublevels.
         assert_eq!(la.labels.iter().filter(|l| !l.excited).count(), 8);
         assert_eq!(la.labels.iter().filter(|l| l.excited).count(), 16);
+    }
+
+    /// The F = 2 → F' = 3 line of ⁸⁷Rb D2 sits 2563.006 MHz − 193.741 MHz below the centroid
+    /// (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, fig. 2, values recalled from memory;
+    /// 50 kHz for the rounding there), and equals the level spacing of the expansion at B = 0.
+    #[test]
+    fn hyperfine_transition_frequency() {
+        let line = rb87_d2();
+        let w = line.hyperfine_frequency(4, 6).unwrap();
+        let offset_mhz = (w - line.omega) / std::f64::consts::TAU / 1e6;
+        assert!(
+            (offset_mhz - (193.7408 - 2563.0060)).abs() < 0.05,
+            "{offset_mhz}"
+        );
+        let la = line.expand(0.0, |_| true, |_| true).unwrap();
+        let e = la.atom.levels()[la.level(true, 6, 0).unwrap()].energy();
+        let g = la.atom.levels()[la.level(false, 4, 0).unwrap()].energy();
+        assert!((e - g - w).abs() < 1e-6 * line.gamma, "{}", e - g - w);
+        assert_eq!(line.hyperfine_frequency(4, 8), None);
     }
 }

@@ -23,6 +23,33 @@ use crate::field::HBAR;
 /// Bohr magneton μ_B (J/T), CODATA 2018.
 pub const BOHR_MAGNETON: f64 = 9.274_010_078_3e-24;
 
+/// The electron spin g-factor |g_S| (CODATA 2018).
+pub const G_SPIN: f64 = 2.002_319_304_362_56;
+
+/// The Landé factor of a fine-structure level from doubled L, S and J (LS coupling, g_L = 1,
+/// g_S = [`G_SPIN`]): g_J = g_L [J(J+1) − S(S+1) + L(L+1)] / 2J(J+1) + g_S [J(J+1) + S(S+1) −
+/// L(L+1)] / 2J(J+1) (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, eq. 21, with the
+/// nuclear-mass correction to g_L neglected). `None` for J = 0 (no moment) or when J is not in
+/// |L − S| … L + S. Measured g_J differ in the fourth digit (QED and relativistic corrections);
+/// give the measured value where precision matters.
+pub fn lande_g_j(two_l: i32, two_s: i32, two_j: i32) -> Option<f64> {
+    if two_j <= 0
+        || two_l < 0
+        || two_s < 0
+        || two_j < (two_l - two_s).abs()
+        || two_j > two_l + two_s
+        || (two_l + two_s + two_j) % 2 != 0
+    {
+        return None;
+    }
+    let x = |t: i32| {
+        let v = f64::from(t) / 2.0;
+        v * (v + 1.0)
+    };
+    let (jj, ss, ll) = (x(two_j), x(two_s), x(two_l));
+    Some(((jj - ss + ll) + G_SPIN * (jj + ss - ll)) / (2.0 * jj))
+}
+
 /// The constants of one hyperfine manifold J ⊗ I.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Hyperfine {
@@ -134,6 +161,33 @@ impl Hyperfine {
         }
         out.sort_by(|a, b| a.energy.total_cmp(&b.energy));
         Ok(out)
+    }
+
+    /// The 2F of every hyperfine level, |J − I| ≤ F ≤ J + I, ascending.
+    pub fn two_fs(&self) -> Vec<i32> {
+        ((self.two_j - self.two_i).abs()..=self.two_j + self.two_i)
+            .step_by(2)
+            .collect()
+    }
+
+    /// The zero-field energy E/ħ (rad/s) of hyperfine level 2F relative to the centroid:
+    /// E_F = A K/2 + B [3K(K+1)/2 − 2I(I+1)J(J+1)] / [4I(2I−1)J(2J−1)],
+    /// K = F(F+1) − I(I+1) − J(J+1) (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, eq. 16;
+    /// the B term only for I ≥ 1 and J ≥ 1). `None` when F is not a level of this manifold.
+    pub fn zero_field_energy(&self, two_f: i32) -> Option<f64> {
+        if !self.two_fs().contains(&two_f) {
+            return None;
+        }
+        let (i, j) = (f64::from(self.two_i) / 2.0, f64::from(self.two_j) / 2.0);
+        let f = f64::from(two_f) / 2.0;
+        let k = f * (f + 1.0) - i * (i + 1.0) - j * (j + 1.0);
+        let quad = if self.two_i >= 2 && self.two_j >= 2 {
+            self.b * (1.5 * k * (k + 1.0) - 2.0 * i * (i + 1.0) * j * (j + 1.0))
+                / (4.0 * i * (2.0 * i - 1.0) * j * (2.0 * j - 1.0))
+        } else {
+            0.0
+        };
+        Some(self.a * k / 2.0 + quad)
     }
 
     /// The Breit–Rabi energies (rad/s) of the F = I ± 1/2 sublevel with 2m_F = `two_m` for
@@ -270,5 +324,54 @@ mod tests {
                 .count();
             assert_eq!(hits, n, "F = {f}: E = {e}");
         }
+    }
+
+    /// The Landé formula against the measured g_J of the species table (Steck's and Tiecke's
+    /// compilations, `notebooks-spec/SPECIES.md`): S₁/₂ ≈ g_S, P₁/₂ ≈ 2/3, P₃/₂ ≈ 4/3, within
+    /// 3e-3 — the size of the QED and relativistic corrections the formula leaves out.
+    #[test]
+    fn lande_factors_match_measured_values() {
+        for s in crate::species::SPECIES {
+            let pairs = [
+                (lande_g_j(0, 1, 1), s.ground.g_j),
+                (lande_g_j(2, 1, 1), s.p12.g_j),
+                (lande_g_j(2, 1, 3), s.p32.g_j),
+            ];
+            for (calc, measured) in pairs {
+                let calc = calc.unwrap();
+                assert!(
+                    (calc - measured).abs() < 3e-3,
+                    "{}: {calc} vs {measured}",
+                    s.name
+                );
+            }
+        }
+        assert_eq!(
+            lande_g_j(2, 1, 5),
+            None,
+            "J = 5/2 is not in L ⊗ S = 1 ⊗ 1/2"
+        );
+        assert_eq!(lande_g_j(2, 2, 0), None, "J = 0 has no moment");
+        // ³P₁ (L = S = J = 1): g = 3/2 with g_S = 2 (common practice); with the real g_S, 1.50116.
+        assert!((lande_g_j(2, 2, 2).unwrap() - (1.0 + G_SPIN) / 2.0).abs() < 1e-15);
+    }
+
+    /// The closed-form zero-field energies are the eigenvalues at B = 0, quadrupole included
+    /// (⁸⁷Rb 5²P₃/₂ of the species table).
+    #[test]
+    fn zero_field_energies_match_the_diagonalisation() {
+        let rb = crate::species::Species::named("87Rb").unwrap();
+        let p32 = rb.line(crate::species::DLine::D2).unwrap().excited;
+        let levels = p32.sublevels(0.0).unwrap();
+        for two_f in p32.two_fs() {
+            let e = p32.zero_field_energy(two_f).unwrap();
+            let n = levels
+                .iter()
+                .filter(|l| (l.energy - e).abs() < 1e-9 * p32.a.abs())
+                .count();
+            assert_eq!(n as i32, two_f + 1, "2F = {two_f}: E = {e}");
+        }
+        assert_eq!(p32.two_fs(), vec![0, 2, 4, 6]);
+        assert_eq!(p32.zero_field_energy(8), None);
     }
 }
