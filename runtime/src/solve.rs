@@ -315,8 +315,10 @@ impl Prepared {
                         hint: "at least 2 (start and end)",
                     });
                 }
+                // t_end·i/(k−1) can round one ulp past t_end (10 × 1e-6 · 200 / 200 does),
+                // which would leave the last sample outside the last segment.
                 (0..*k)
-                    .map(|i| t_end * i as f64 / (*k - 1) as f64)
+                    .map(|i| (t_end * i as f64 / (*k - 1) as f64).min(t_end))
                     .collect()
             }
             Samples::Times(ts) => {
