@@ -115,6 +115,27 @@ impl Atom {
     pub fn is_open(&self) -> bool {
         self.decays.iter().any(|d| d.rate > 0.0) || self.dephasing.iter().any(|d| d.rate > 0.0)
     }
+    /// This atom with pure dephasing of `level` at rate γ (1/s) added, checked as
+    /// [`AtomBuilder::build`] checks it. For atoms built elsewhere, e.g. expanded from a line.
+    pub fn with_dephasing(&self, level: LevelId, rate: f64) -> Result<Atom, Error> {
+        let Some(l) = self.levels.get(level) else {
+            return Err(Error::UnknownLevel {
+                what: "a dephasing term".into(),
+                index: level,
+                count: self.n(),
+            });
+        };
+        if !rate.is_finite() || rate < 0.0 {
+            return Err(Error::OutOfRange {
+                what: format!("the dephasing rate of level `{}`", l.name),
+                value: rate,
+                hint: "dephasing rates are finite and non-negative",
+            });
+        }
+        let mut out = self.clone();
+        out.dephasing.push(Dephasing { level, rate });
+        Ok(out)
+    }
     /// The level with this name.
     pub fn level_id(&self, name: &str) -> Option<LevelId> {
         self.levels.iter().position(|l| l.name == name)
@@ -415,5 +436,25 @@ mod tests {
         let mut b = Atom::builder();
         b.level("x", f64::NAN);
         assert!(matches!(b.build(), Err(Error::NonFinite { .. })));
+    }
+
+    /// Dephasing added to a built atom is checked like the builder's and makes the atom open.
+    #[test]
+    fn dephasing_added_after_building() {
+        let mut b = Atom::builder();
+        let g = b.level("g", 0.0);
+        let e = b.level("e", 1.0);
+        b.transition(g, e);
+        let atom = b.build().unwrap();
+        assert!(!atom.is_open());
+        let d = atom.with_dephasing(e, 2.0).unwrap();
+        assert!(d.is_open());
+        assert_eq!(d.dephasing(), &[Dephasing { level: e, rate: 2.0 }]);
+        assert!(matches!(
+            atom.with_dephasing(7, 1.0),
+            Err(Error::UnknownLevel { index: 7, .. })
+        ));
+        assert!(atom.with_dephasing(g, -1.0).is_err());
+        assert!(atom.with_dephasing(g, f64::NAN).is_err());
     }
 }

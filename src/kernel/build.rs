@@ -5,13 +5,16 @@
 
 use std::collections::{HashMap, HashSet};
 
+use fieldbook_runtime::manifold::Line;
 use fieldbook_runtime::prelude::*;
+use fieldbook_runtime::species::{DLine, SPECIES, Species};
 use fieldbook_runtime::state::State as RtState;
+use fieldbook_runtime::zeeman::{Hyperfine, lande_g_j};
 
 use super::scope::Scope;
 use crate::notebook::blocks::{
-    AtomBlock, ChirpDef, EvolveBlock, Ex, LightBlock, MethodName, SequenceBlock, ShapeDef,
-    StartDef, StepDef, StrengthKind,
+    AtomBlock, ChirpDef, EvolveBlock, Ex, LightBlock, LineSource, ManifoldDef, MethodName,
+    PolarizationDef, SequenceBlock, ShapeDef, StartDef, StepDef, StrengthKind, ZeemanDef,
 };
 use crate::notebook::diag::Diagnostic;
 use crate::notebook::expr::{self, Dim, Quantity};
@@ -117,7 +120,71 @@ pub struct BuiltAtom {
     pub levels: HashMap<String, LevelId>,
     /// Transition ids by (lower, upper).
     pub transitions: HashMap<(LevelId, LevelId), TransitionId>,
+    /// Named groups of levels, in atom order: on a Zeeman atom `g` and `e` (each manifold) and
+    /// `g2`, `e3`, `g3/2` … (each hyperfine level); none on a hand-made atom.
+    pub groups: HashMap<String, Vec<LevelId>>,
+    /// The quantisation axis (lab frame).
+    pub axis: [f64; 3],
+    /// A Zeeman atom's line, for the zero-field frequencies of hyperfine pairs.
+    pub line: Option<Line>,
 }
+
+impl BuiltAtom {
+    /// The levels a name stands for: one level, or every level of a group.
+    pub fn resolve(&self, name: &str) -> Option<Vec<LevelId>> {
+        match self.levels.get(name) {
+            Some(&l) => Some(vec![l]),
+            None => self.groups.get(name).cloned(),
+        }
+    }
+}
+
+/// A group name `g2`, `e3/2`, `g`, `e` as (upper manifold?, 2F), with `None` for a whole
+/// manifold.
+fn parse_group(name: &str) -> Option<(bool, Option<i32>)> {
+    let excited = match name.as_bytes().first()? {
+        b'g' => false,
+        b'e' => true,
+        _ => return None,
+    };
+    let rest = &name[1..];
+    if rest.is_empty() {
+        return Some((excited, None));
+    }
+    let two_f = match rest.split_once('/') {
+        Some((n, "2")) => n.parse::<i32>().ok().filter(|n| n % 2 == 1)?,
+        Some(_) => return None,
+        None => rest.parse::<i32>().ok()?.checked_mul(2)?,
+    };
+    (rest.bytes().all(|c| c.is_ascii_digit() || c == b'/') && two_f >= 0)
+        .then_some((excited, Some(two_f)))
+}
+
+/// What a light's detuning and strength refer to.
+#[derive(Clone, Copy, Debug)]
+enum Reference {
+    /// A transition of the atom.
+    Transition(TransitionId),
+    /// A hyperfine pair of a Zeeman atom, by its zero-field angular frequency (rad/s).
+    Hyperfine(f64),
+}
+
+/// A doubled angular momentum as written in names: `2`, `3/2`.
+fn half(twice: i32) -> String {
+    if twice % 2 == 0 {
+        (twice / 2).to_string()
+    } else {
+        format!("{twice}/2")
+    }
+}
+
+/// The name of a hyperfine level's group: `g2`, `e3/2`.
+fn group_name(excited: bool, two_f: i32) -> String {
+    format!("{}{}", if excited { 'e' } else { 'g' }, half(two_f))
+}
+
+/// The most sublevels a Zeeman atom may expand into (a density matrix of 256² entries).
+const MAX_SUBLEVELS: usize = 256;
 
 /// Evaluates expressions against one set of values, reporting problems.
 pub struct Builder<'a> {
@@ -216,6 +283,20 @@ impl Builder<'_> {
         }
     }
 
+    /// The levels `name` stands for (a level or a group), or a diagnostic at `span`.
+    fn levels_of(
+        &mut self,
+        atom: &BuiltAtom,
+        name: &str,
+        span: &Span,
+        atom_name: &str,
+    ) -> Option<Vec<LevelId>> {
+        match atom.resolve(name) {
+            Some(ls) => Some(ls),
+            None => self.level(atom, name, span, atom_name).map(|l| vec![l]),
+        }
+    }
+
     fn level(
         &mut self,
         atom: &BuiltAtom,
@@ -225,6 +306,23 @@ impl Builder<'_> {
     ) -> Option<LevelId> {
         if let Some(&l) = atom.levels.get(name) {
             return Some(l);
+        }
+        if atom.groups.contains_key(name) {
+            self.diags.push(
+                Diagnostic::error(
+                    span.clone(),
+                    format!(
+                        "`{name}` is a group of levels of `{atom_name}`; one level is needed here"
+                    ),
+                )
+                .with_hint(format!(
+                    "name one sublevel, e.g. `{}`",
+                    atom.groups[name]
+                        .last()
+                        .map_or("", |&l| atom.atom.levels()[l].name())
+                )),
+            );
+            return None;
         }
         let names: Vec<&str> = atom.atom.levels().iter().map(|l| l.name()).collect();
         let hint = match crate::notebook::diag::did_you_mean(name, names.iter().copied()) {
@@ -253,6 +351,10 @@ impl Builder<'_> {
         span: &Span,
         drives: &[&LightBlock],
     ) -> Option<BuiltAtom> {
+        if let Some(z) = &block.zeeman {
+            return self.zeeman_atom(name, block, z, span);
+        }
+        let axis = block.axis.as_ref().map_or([0.0, 0.0, 1.0], |a| a.0);
         let mut b = Atom::builder();
         let mut levels = HashMap::new();
         let mut ok = true;
@@ -272,6 +374,9 @@ impl Builder<'_> {
             atom: b.build().ok()?,
             levels,
             transitions: HashMap::new(),
+            groups: HashMap::new(),
+            axis,
+            line: None,
         };
         let mut pairs: Vec<(LevelId, LevelId, [C64; 3])> = Vec::new();
         for t in &block.transitions {
@@ -310,9 +415,19 @@ impl Builder<'_> {
                 continue;
             };
             if !pairs.iter().any(|p| (p.0, p.1) == (*lo, *up)) {
-                let mut comp = [C64::new(0.0, 0.0); 3];
-                comp[(light.polarization + 1) as usize] =
-                    C64::new(fieldbook_runtime::atom::E_A0, 0.0);
+                // d_q = e a₀ (ε^q)*, so that the light's own coupling is e a₀ whatever its
+                // polarisation; a polarisation that fails to build is reported by the light.
+                let mut scratch = Vec::new();
+                let pol = Builder {
+                    values: self.values,
+                    diags: &mut scratch,
+                    warn: false,
+                }
+                .polarization(light, axis)
+                .unwrap_or_else(Polarization::pi);
+                let comp = pol
+                    .components()
+                    .map(|e| e.conj() * fieldbook_runtime::atom::E_A0);
                 pairs.push((*lo, *up, comp));
             }
         }
@@ -356,6 +471,330 @@ impl Builder<'_> {
         }
     }
 
+    /// A Zeeman atom: the line's manifolds expanded into hyperfine + Zeeman sublevels at the
+    /// block's magnetic field, with its groups.
+    fn zeeman_atom(
+        &mut self,
+        name: &str,
+        block: &AtomBlock,
+        z: &ZeemanDef,
+        span: &Span,
+    ) -> Option<BuiltAtom> {
+        let axis = block.axis.as_ref().map_or([0.0, 0.0, 1.0], |a| a.0);
+        let b_field = match &z.magnetic_field {
+            Some(e) => self.quantity(e, Dim::MAGNETIC_FIELD, "the magnetic field"),
+            None => Some(0.0),
+        };
+        let line = match &z.source {
+            LineSource::Species { species, line } => match Species::named(&species.0) {
+                Some(sp) => sp.line(if *line == 1 { DLine::D1 } else { DLine::D2 }).ok(),
+                None => {
+                    let names: Vec<&str> = SPECIES.iter().map(|s| s.name).collect();
+                    self.diags.push(
+                        Diagnostic::error(
+                            species.1.clone(),
+                            format!("`{}` is not in the species table", species.0),
+                        )
+                        .with_hint(format!(
+                            "the table holds {} (notebooks-spec/SPECIES.md); describe other atoms by `lower` and `upper`",
+                            crate::notebook::schema::list(&names)
+                        )),
+                    );
+                    None
+                }
+            },
+            LineSource::Manifolds {
+                lower,
+                upper,
+                frequency,
+                wavelength,
+                width,
+                lifetime,
+            } => {
+                let in_field = b_field.is_some_and(|b| b != 0.0);
+                let lo = self.hyperfine(lower, "lower", in_field);
+                let up = self.hyperfine(upper, "upper", in_field);
+                let omega = if *wavelength {
+                    self.positive(frequency, Dim::LENGTH, "the wavelength")
+                        .map(|l| std::f64::consts::TAU * fieldbook_runtime::field::C_LIGHT / l)
+                } else {
+                    self.positive(frequency, Dim::FREQUENCY, "the line's frequency")
+                };
+                let gamma = if *lifetime {
+                    self.positive(width, Dim::TIME, "the lifetime")
+                        .map(|t| 1.0 / t)
+                } else {
+                    self.positive(width, Dim::FREQUENCY, "the linewidth")
+                };
+                Some(Line {
+                    ground: lo?,
+                    excited: up?,
+                    omega: omega?,
+                    gamma: gamma?,
+                })
+            }
+        };
+        let (line, b_field) = (line?, b_field?);
+        // The groups to keep, checked against the manifolds' hyperfine levels.
+        let mut keep_g: Vec<i32> = Vec::new();
+        let mut keep_e: Vec<i32> = Vec::new();
+        let mut ok = true;
+        for k in &z.keep {
+            let manifolds = [(false, &line.ground), (true, &line.excited)];
+            let hit = parse_group(&k.name).and_then(|(excited, f)| {
+                let m = manifolds[usize::from(excited)].1;
+                match f {
+                    None => Some((excited, m.two_fs())),
+                    Some(f) => m.two_fs().contains(&f).then(|| (excited, vec![f])),
+                }
+            });
+            match hit {
+                Some((false, fs)) => keep_g.extend(fs),
+                Some((true, fs)) => keep_e.extend(fs),
+                None => {
+                    let mut names = Vec::new();
+                    for (excited, m) in manifolds {
+                        for f in m.two_fs() {
+                            names.push(group_name(excited, f));
+                        }
+                    }
+                    let names: Vec<&str> = names.iter().map(String::as_str).collect();
+                    self.diags.push(
+                        Diagnostic::error(
+                            k.span.clone(),
+                            format!("`{}` is not a hyperfine level of `{name}`", k.name),
+                        )
+                        .with_hint(format!(
+                            "its hyperfine levels are {}",
+                            crate::notebook::schema::list(&names)
+                        )),
+                    );
+                    ok = false;
+                }
+            }
+        }
+        if !ok {
+            return None;
+        }
+        let kept = |keep: &[i32], f: i32| keep.is_empty() || keep.contains(&f);
+        let count: i32 = line
+            .ground
+            .two_fs()
+            .into_iter()
+            .filter(|f| kept(&keep_g, *f))
+            .chain(
+                line.excited
+                    .two_fs()
+                    .into_iter()
+                    .filter(|f| kept(&keep_e, *f)),
+            )
+            .map(|f| f + 1)
+            .sum();
+        if count as usize > MAX_SUBLEVELS {
+            self.diags.push(
+                Diagnostic::error(
+                    span.start..span.start + 3,
+                    format!(
+                        "the atom `{name}` expands into {count} sublevels; at most {MAX_SUBLEVELS} are supported"
+                    ),
+                )
+                .with_hint("keep fewer hyperfine levels with `keep = [...]`"),
+            );
+            return None;
+        }
+        let la = match line.expand(b_field, |f| kept(&keep_g, f), |f| kept(&keep_e, f)) {
+            Ok(la) => la,
+            Err(e) => {
+                let at = z
+                    .keep
+                    .first()
+                    .map_or(span.start..span.start + 3, |k| k.span.clone());
+                self.diags.push(
+                    Diagnostic::error(at, format!("the atom `{name}` cannot be expanded: {e}"))
+                        .with_hint(
+                            "keep every lower hyperfine level that a kept upper one decays to",
+                        ),
+                );
+                return None;
+            }
+        };
+        if self.warn && la.leaked > 1e-12 {
+            let at = z
+                .keep
+                .first()
+                .map_or(span.start..span.start + 3, |k| k.span.clone());
+            self.diags.push(Diagnostic::warning(
+                at,
+                format!(
+                    "in this field up to {:.1e} of a kept upper sublevel's decay leads to lower levels that are not kept; it is returned to the kept ones",
+                    la.leaked
+                ),
+            ));
+        }
+        let mut levels = HashMap::new();
+        let mut groups: HashMap<String, Vec<LevelId>> = HashMap::new();
+        for (id, l) in la.labels.iter().enumerate() {
+            levels.insert(l.name.clone(), id);
+            groups
+                .entry(if l.excited { "e" } else { "g" }.to_string())
+                .or_default()
+                .push(id);
+            groups
+                .entry(group_name(l.excited, l.two_f))
+                .or_default()
+                .push(id);
+        }
+        let transitions = la
+            .atom
+            .transitions()
+            .iter()
+            .enumerate()
+            .map(|(k, t)| ((t.lower(), t.upper()), k))
+            .collect();
+        let mut built = BuiltAtom {
+            atom: la.atom,
+            levels,
+            transitions,
+            groups,
+            axis,
+            line: Some(line),
+        };
+        for d in &block.dephasing {
+            let ls = self.levels_of(&built, &d.key.name, &d.key.span, name);
+            let r = self.non_negative(&d.rate, Dim::FREQUENCY, "a dephasing rate");
+            let (Some(ls), Some(r)) = (ls, r) else {
+                ok = false;
+                continue;
+            };
+            for l in ls {
+                match built.atom.with_dephasing(l, r) {
+                    Ok(a) => built.atom = a,
+                    Err(e) => {
+                        self.diags
+                            .push(Diagnostic::error(d.rate.span.clone(), e.to_string()));
+                        ok = false;
+                    }
+                }
+            }
+        }
+        ok.then_some(built)
+    }
+
+    /// One manifold's constants from its quantum numbers; g_J from L and S when not given, and
+    /// required (one way or the other) in a magnetic field.
+    fn hyperfine(&mut self, m: &ManifoldDef, side: &str, in_field: bool) -> Option<Hyperfine> {
+        let a = match &m.a {
+            Some(e) => self.quantity(e, Dim::FREQUENCY, "the hyperfine constant A"),
+            None => Some(0.0),
+        };
+        let b = match &m.b {
+            Some(e) => self.quantity(e, Dim::FREQUENCY, "the hyperfine constant B"),
+            None => Some(0.0),
+        };
+        let lande = match (&m.l, &m.s) {
+            (Some(l), Some(s)) => {
+                match lande_g_j(l.0, s.0, m.j.0) {
+                    Some(g) => Some(g),
+                    None => {
+                        self.diags.push(
+                        Diagnostic::error(
+                            m.j.1.clone(),
+                            format!(
+                                "J = {} cannot come from L = {} and S = {}",
+                                half(m.j.0),
+                                half(l.0),
+                                half(s.0)
+                            ),
+                        )
+                        .with_hint("|L − S| ≤ J ≤ L + S, and J = 0 has no magnetic moment; or give `g_J`"),
+                    );
+                        return None;
+                    }
+                }
+            }
+            _ => None,
+        };
+        let g_j = match (m.g_j, lande) {
+            (Some(g), _) | (None, Some(g)) => g,
+            (None, None) if in_field => {
+                self.diags.push(
+                    Diagnostic::error(
+                        m.span.clone(),
+                        format!(
+                            "the {side} manifold needs `g_J` (or `L` and `S`) in a magnetic field"
+                        ),
+                    )
+                    .with_hint("e.g. `g_J = 2.0023`, or `L = 0, S = \"1/2\"` for the Landé value"),
+                );
+                return None;
+            }
+            (None, None) => 0.0,
+        };
+        Some(Hyperfine {
+            two_j: m.j.0,
+            two_i: m.i,
+            a: a?,
+            b: b?,
+            g_j,
+            g_i: m.g_i,
+        })
+    }
+
+    /// A light's polarisation relative to the quantisation axis `axis`.
+    pub fn polarization(&mut self, light: &LightBlock, axis: [f64; 3]) -> Option<Polarization> {
+        let (r, span) = match &light.polarization {
+            PolarizationDef::Spherical(q) => {
+                let mut c = [C64::new(0.0, 0.0); 3];
+                c[(q + 1) as usize] = C64::new(1.0, 0.0);
+                return Polarization::new(c).ok();
+            }
+            PolarizationDef::Angle(ex) => {
+                let theta = self.quantity(ex, Dim::DIMENSIONLESS, "the polarisation angle")?;
+                (Polarization::linear_at(theta), ex.span.clone())
+            }
+            PolarizationDef::Vector {
+                vector,
+                span,
+                ellipticity,
+            } => {
+                let chi = match ellipticity {
+                    Some(e) => self.quantity(e, Dim::DIMENSIONLESS, "the ellipticity")?,
+                    None => 0.0,
+                };
+                match &light.direction {
+                    Some((k, _)) => (
+                        Polarization::elliptical(*vector, *k, chi, axis),
+                        span.clone(),
+                    ),
+                    None if chi != 0.0 => {
+                        let at = ellipticity
+                            .as_ref()
+                            .map_or(span.clone(), |e| e.span.clone());
+                        self.diags.push(
+                            Diagnostic::error(at, "elliptical light needs the light's `direction`")
+                                .with_hint("the helicity is defined about the beam, e.g. `direction = [0, 0, 1]`"),
+                        );
+                        return None;
+                    }
+                    None => (
+                        Polarization::from_cartesian(vector.map(|x| C64::new(x, 0.0)), axis),
+                        span.clone(),
+                    ),
+                }
+            }
+        };
+        match r {
+            Ok(p) => Some(p),
+            Err(e) => {
+                self.diags.push(Diagnostic::error(
+                    span,
+                    format!("the polarisation is invalid: {e}"),
+                ));
+                None
+            }
+        }
+    }
+
     /// Build a field from a light block on a built atom.
     pub fn field(
         &mut self,
@@ -364,28 +803,10 @@ impl Builder<'_> {
         atom: &BuiltAtom,
         atom_name: &str,
     ) -> Option<Field> {
-        let lo = self.level(
-            atom,
-            &light.drives.from.name,
-            &light.drives.from.span,
-            atom_name,
-        );
-        let up = self.level(
-            atom,
-            &light.drives.to.name,
-            &light.drives.to.span,
-            atom_name,
-        );
-        let (lo, up) = (lo?, up?);
-        let Some(&tr) = atom.transitions.get(&(lo, up)) else {
-            self.diags.push(Diagnostic::error(
-                light.drives.span.clone(),
-                format!(
-                    "`{} -> {}` is not a transition of `{atom_name}`",
-                    light.drives.from.name, light.drives.to.name
-                ),
-            ));
-            return None;
+        let reference = self.reference(light, atom, atom_name)?;
+        let tr = match reference {
+            Reference::Transition(tr) => Some(tr),
+            Reference::Hyperfine(_) => None,
         };
         // Every value is evaluated before any failure returns, so that all of a light's problems
         // are reported at once.
@@ -393,25 +814,49 @@ impl Builder<'_> {
             (_, Some(f)) => self
                 .positive(f, Dim::FREQUENCY, "the light's frequency")
                 .map(Carrier::Frequency),
-            (Some(d), None) => self
-                .quantity(d, Dim::FREQUENCY, "the detuning")
-                .map(|detuning| Carrier::Detuning {
-                    transition: tr,
-                    detuning,
-                }),
-            (None, None) => Some(Carrier::Detuning {
-                transition: tr,
-                detuning: 0.0,
-            }),
+            (d, None) => {
+                let detuning = match d {
+                    Some(d) => self.quantity(d, Dim::FREQUENCY, "the detuning"),
+                    None => Some(0.0),
+                };
+                detuning.map(|detuning| match reference {
+                    Reference::Transition(transition) => Carrier::Detuning {
+                        transition,
+                        detuning,
+                    },
+                    Reference::Hyperfine(w) => Carrier::Frequency(w + detuning),
+                })
+            }
         };
         let (kind, ex) = &light.strength;
+        let needs_transition = |b: &mut Self, what: &str| -> Option<TransitionId> {
+            if tr.is_none() {
+                b.diags.push(
+                    Diagnostic::error(
+                        ex.span.clone(),
+                        format!(
+                            "{what} needs one sublevel transition as `drives`; `{} -> {}` is a pair of hyperfine levels",
+                            light.drives.from.name, light.drives.to.name
+                        ),
+                    )
+                    .with_hint("give `intensity` or `field`, or drive a sublevel pair such as `g2_m2 -> e3_m3`"),
+                );
+            }
+            tr
+        };
         let strength = match kind {
-            StrengthKind::Rabi => self
-                .non_negative(ex, Dim::FREQUENCY, "the Rabi frequency")
-                .map(|rabi| Strength::Rabi {
-                    transition: tr,
-                    rabi,
-                }),
+            StrengthKind::Rabi => {
+                let rabi = self.non_negative(ex, Dim::FREQUENCY, "the Rabi frequency");
+                let transition = needs_transition(self, "a Rabi frequency");
+                rabi.zip(transition)
+                    .map(|(rabi, transition)| Strength::Rabi { transition, rabi })
+            }
+            StrengthKind::Saturation => {
+                let s = self.non_negative(ex, Dim::DIMENSIONLESS, "the saturation parameter");
+                let transition = needs_transition(self, "a saturation parameter");
+                s.zip(transition)
+                    .map(|(s, transition)| Strength::Saturation { transition, s })
+            }
             StrengthKind::Field => self
                 .non_negative(ex, Dim::ELECTRIC_FIELD, "the field amplitude")
                 .map(Strength::ElectricField),
@@ -441,10 +886,20 @@ impl Builder<'_> {
                     }),
             ),
         };
-        let mut pol = [C64::new(0.0, 0.0); 3];
-        pol[(light.polarization + 1) as usize] = C64::new(1.0, 0.0);
-        let mut field =
-            Field::new(name, carrier?, strength?).with_polarization(Polarization::new(pol).ok()?);
+        let pol = self.polarization(light, atom.axis);
+        let mut field = Field::new(name, carrier?, strength?).with_polarization(pol?);
+        if let Some((k, span)) = &light.direction {
+            match field.with_direction(*k) {
+                Ok(f) => field = f,
+                Err(e) => {
+                    self.diags.push(Diagnostic::error(
+                        span.clone(),
+                        format!("the direction is invalid: {e}"),
+                    ));
+                    return None;
+                }
+            }
+        }
         if let Some(p) = phase {
             field = field.with_phase(p?);
         }
@@ -455,6 +910,70 @@ impl Builder<'_> {
             field = field.with_chirp(c?);
         }
         Some(field)
+    }
+
+    /// What a light's `drives` names: a transition, or on a Zeeman atom a pair of hyperfine
+    /// levels (`g2 -> e3`), whose zero-field frequency its detuning is measured from.
+    fn reference(
+        &mut self,
+        light: &LightBlock,
+        atom: &BuiltAtom,
+        atom_name: &str,
+    ) -> Option<Reference> {
+        let (from, to) = (&light.drives.from, &light.drives.to);
+        if let Some(line) = &atom.line
+            && (atom.groups.contains_key(&from.name) || atom.groups.contains_key(&to.name))
+        {
+            let pair = match (parse_group(&from.name), parse_group(&to.name)) {
+                (Some((false, Some(f))), Some((true, Some(fp))))
+                    if atom.groups.contains_key(&from.name)
+                        && atom.groups.contains_key(&to.name) =>
+                {
+                    line.hyperfine_frequency(f, fp)
+                }
+                _ => None,
+            };
+            return match pair {
+                Some(w) => Some(Reference::Hyperfine(w)),
+                None => {
+                    self.diags.push(
+                        Diagnostic::error(
+                            light.drives.span.clone(),
+                            format!(
+                                "`{} -> {}` is neither a sublevel transition nor a pair of kept hyperfine levels of `{atom_name}`",
+                                from.name, to.name
+                            ),
+                        )
+                        .with_hint("write a lower and an upper hyperfine level, e.g. `\"g2 -> e3\"`, or two sublevels, e.g. `\"g2_m2 -> e3_m3\"`"),
+                    );
+                    None
+                }
+            };
+        }
+        let lo = self.level(atom, &from.name, &from.span, atom_name);
+        let up = self.level(atom, &to.name, &to.span, atom_name);
+        let (lo, up) = (lo?, up?);
+        match atom.transitions.get(&(lo, up)) {
+            Some(&tr) => Some(Reference::Transition(tr)),
+            None => {
+                let hint = if atom.line.is_some() {
+                    "a dipole couples m to m and m ± 1, and only lower to upper sublevels"
+                } else {
+                    "declare it under `[transitions]`"
+                };
+                self.diags.push(
+                    Diagnostic::error(
+                        light.drives.span.clone(),
+                        format!(
+                            "`{} -> {}` is not a transition of `{atom_name}`",
+                            from.name, to.name
+                        ),
+                    )
+                    .with_hint(hint),
+                );
+                None
+            }
+        }
     }
 
     fn compiled(
@@ -655,15 +1174,30 @@ impl Builder<'_> {
     ) -> Option<RtState> {
         let r = match start {
             StartDef::Default => RtState::level(&atom.atom, 0),
-            StartDef::Level(n) => {
-                RtState::level(&atom.atom, self.level(atom, &n.name, &n.span, atom_name)?)
-            }
+            StartDef::Level(n) => match self.levels_of(atom, &n.name, &n.span, atom_name)?[..] {
+                [l] => RtState::level(&atom.atom, l),
+                ref group => {
+                    let ws: Vec<(LevelId, f64)> = group.iter().map(|&l| (l, 1.0)).collect();
+                    RtState::mixture(&atom.atom, &ws)
+                }
+            },
             StartDef::Mixture(w) => {
-                let ws: Option<Vec<(LevelId, f64)>> = w
-                    .iter()
-                    .map(|(n, x)| Some((self.level(atom, &n.name, &n.span, atom_name)?, *x)))
-                    .collect();
-                RtState::mixture(&atom.atom, &ws?)
+                // A group's weight is spread evenly over its sublevels.
+                let mut ws: Vec<(LevelId, f64)> = Vec::new();
+                let mut ok = true;
+                for (n, x) in w {
+                    match self.levels_of(atom, &n.name, &n.span, atom_name) {
+                        Some(ls) => {
+                            let share = *x / ls.len() as f64;
+                            ws.extend(ls.into_iter().map(|l| (l, share)));
+                        }
+                        None => ok = false,
+                    }
+                }
+                if !ok {
+                    return None;
+                }
+                RtState::mixture(&atom.atom, &ws)
             }
             StartDef::Superposition(w) => {
                 let ws: Option<Vec<(LevelId, C64)>> = w
@@ -681,12 +1215,15 @@ impl Builder<'_> {
                 levels,
                 temperature,
             } => {
-                let ls: Option<Vec<LevelId>> = levels
+                let ls: Option<Vec<Vec<LevelId>>> = levels
                     .iter()
-                    .map(|n| self.level(atom, &n.name, &n.span, atom_name))
+                    .map(|n| self.levels_of(atom, &n.name, &n.span, atom_name))
                     .collect();
                 let t = self.positive(temperature, Dim::TEMPERATURE, "the temperature")?;
-                RtState::thermal(&atom.atom, &ls?, t)
+                let mut ls: Vec<LevelId> = ls?.into_iter().flatten().collect();
+                ls.sort_unstable();
+                ls.dedup();
+                RtState::thermal(&atom.atom, &ls, t)
             }
         };
         match r {
@@ -712,21 +1249,31 @@ impl Builder<'_> {
         let mut ok = true;
         for (o, span, level_spans) in obs {
             let mut ids = Vec::new();
+            let populations = matches!(o, ObsSpec::Population(_));
             for (k, l) in o.levels().into_iter().enumerate() {
-                match atom.levels.get(l) {
-                    Some(&id) => ids.push(id),
-                    None => {
-                        self.level(atom, l, level_spans.get(k).unwrap_or(span), atom_name);
-                        ok = false;
-                    }
+                let at = level_spans.get(k).unwrap_or(span);
+                // A population may sum a group; the other observables need single levels.
+                let found = if populations {
+                    self.levels_of(atom, l, at, atom_name)
+                } else {
+                    self.level(atom, l, at, atom_name).map(|l| vec![l])
+                };
+                match found {
+                    Some(ls) => ids.extend(ls),
+                    None => ok = false,
                 }
             }
             if !ok {
                 continue;
             }
             out.push(match o {
-                ObsSpec::Population(ls) if ls.len() == 1 => Observable::Population(ids[0]),
-                ObsSpec::Population(_) => Observable::PopulationSum(ids),
+                ObsSpec::Population(_) if ids.len() == 1 => Observable::Population(ids[0]),
+                ObsSpec::Population(_) => {
+                    // A set of levels: one named twice (directly and in a group) counts once.
+                    ids.sort_unstable();
+                    ids.dedup();
+                    Observable::PopulationSum(ids)
+                }
                 ObsSpec::Coherence(..) => Observable::Coherence(ids[0], ids[1]),
                 ObsSpec::Bloch(..) => Observable::Bloch {
                     lower: ids[0],
@@ -794,7 +1341,43 @@ pub fn problem(
         Some(c) => b.positive(c, Dim::FREQUENCY, "the cutoff"),
         None => Some(f64::INFINITY),
     };
-    let fields: Option<Vec<Field>> = fields.into_iter().collect();
+    let velocity = match &ev.velocity {
+        Some((exs, span)) => {
+            let v: Option<Vec<f64>> = exs
+                .iter()
+                .map(|e| b.quantity(e, Dim::VELOCITY, "the velocity"))
+                .collect();
+            v.map(|v| (Some([v[0], v[1], v[2]]), span.clone()))
+        }
+        None => Some((None, inputs.span.clone())),
+    };
+    let mut fields: Option<Vec<Field>> = fields.into_iter().collect();
+    // A moving atom sees each light Doppler shifted.
+    if let (Some(fs), Some((Some(v), vspan))) = (&mut fields, &velocity) {
+        for (f, (lname, light)) in fs.iter_mut().zip(&inputs.lights) {
+            if light.direction.is_none() {
+                b.diags.push(
+                    Diagnostic::error(
+                        vspan.clone(),
+                        format!("the light `{lname}` has no `direction`, so its Doppler shift is undefined"),
+                    )
+                    .with_hint("give every light of a moving atom its beam direction, e.g. `direction = [0, 0, 1]`"),
+                );
+                return None;
+            }
+            match f.doppler_shifted(&atom.atom, *v) {
+                Ok(shifted) => *f = shifted,
+                Err(e) => {
+                    b.diags.push(Diagnostic::error(
+                        vspan.clone(),
+                        format!("the Doppler shift of `{lname}` failed: {e}"),
+                    ));
+                    return None;
+                }
+            }
+        }
+    }
+    velocity.as_ref()?;
     let (fields, observables, cutoff) = (fields, observables, cutoff);
     if ev.steady {
         return Some(Built::Steady(SteadyProblem {

@@ -13,7 +13,7 @@ use super::session::Checked;
 use crate::notebook::expr::Dim;
 
 /// Bumped whenever the meaning of a cached result changes.
-const CACHE_VERSION: &str = "fieldbook-cache-1";
+const CACHE_VERSION: &str = "fieldbook-cache-2";
 
 /// A folder of cached results.
 #[derive(Clone, Debug)]

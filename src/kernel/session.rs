@@ -5,6 +5,7 @@
 use std::collections::{HashMap, HashSet};
 use std::sync::atomic::{AtomicUsize, Ordering};
 
+use fieldbook_runtime::frame::TermNote;
 use fieldbook_runtime::prelude::*;
 use fieldbook_runtime::sweep::SweepError;
 
@@ -14,8 +15,8 @@ use super::results::{self, AxisResult, EvolveResult, ObsResult, PathValue, Solve
 use super::scope::{self, Scope};
 use crate::notebook::Document;
 use crate::notebook::blocks::{
-    AtomBlock, AxisValues, Block, CheckBlock, Condition, EvolveBlock, Ex, LightBlock, PathRef,
-    SequenceBlock, StepDef, Tol, WidthDef,
+    AtomBlock, AxisValues, Block, CheckBlock, Condition, EvolveBlock, Ex, LightBlock, LineSource,
+    PathRef, PolarizationDef, SequenceBlock, StepDef, Tol, WidthDef,
 };
 use crate::notebook::diag::Diagnostic;
 use crate::notebook::expr::{self, Dim};
@@ -335,6 +336,22 @@ fn atom_exprs(a: &AtomBlock) -> Vec<&Ex> {
     v.extend(a.transitions.iter().filter_map(|t| t.dipole.as_ref()));
     v.extend(a.decays.iter().map(|d| &d.rate));
     v.extend(a.dephasing.iter().map(|d| &d.rate));
+    if let Some(z) = &a.zeeman {
+        v.extend(&z.magnetic_field);
+        if let LineSource::Manifolds {
+            lower,
+            upper,
+            frequency,
+            width,
+            ..
+        } = &z.source
+        {
+            v.extend([frequency, width]);
+            for m in [lower, upper] {
+                v.extend(m.a.iter().chain(&m.b));
+            }
+        }
+    }
     v
 }
 
@@ -344,6 +361,14 @@ fn light_exprs(l: &LightBlock) -> Vec<&Ex> {
         .flatten()
         .collect();
     v.push(&l.strength.1);
+    match &l.polarization {
+        PolarizationDef::Angle(e) => v.push(e),
+        PolarizationDef::Vector {
+            ellipticity: Some(e),
+            ..
+        } => v.push(e),
+        _ => {}
+    }
     match &l.chirp {
         Some(crate::notebook::blocks::ChirpDef::Rate(e))
         | Some(crate::notebook::blocks::ChirpDef::Formula(e)) => v.push(e),
@@ -471,6 +496,9 @@ fn check_evolve(
     }
     if let Some(cut) = &e.cutoff {
         c.scope.check_refs(cut, order, diags);
+    }
+    for v in e.velocity.iter().flat_map(|(v, _)| v) {
+        c.scope.check_refs(v, order, diags);
     }
     // The nominal problem: every name, level and expression checked here.
     let before = diags.len();
@@ -1412,26 +1440,55 @@ fn solve_at(
     }
 }
 
+/// The frame report in words: every term that is not static, one line each, except that a
+/// field's terms of one fate are summed up in one line when there are more than
+/// [`FRAME_LINES_PER_FATE`] of them (a Zeeman atom has dozens).
 fn frame_lines(r: &FrameReport) -> Vec<String> {
-    r.notes
-        .iter()
-        .filter(|n| n.fate != Fate::Static)
-        .map(|n| {
-            let fate = match n.fate {
-                Fate::TimeDependent => "kept, rotating",
-                Fate::CounterRotating => "dropped (counter-rotating)",
-                Fate::BeyondCutoff => "dropped (beyond the cutoff)",
-                Fate::Static => "kept",
-            };
-            format!(
-                "{} on {}: {fate}, ν = {}",
-                n.field,
-                n.transition,
-                expr::format_quantity(n.rotation, Dim::FREQUENCY)
-            )
-        })
-        .collect()
+    let mut out = Vec::new();
+    let mut fields: Vec<&str> = Vec::new();
+    for n in &r.notes {
+        if !fields.contains(&n.field.as_str()) {
+            fields.push(&n.field);
+        }
+    }
+    let freq = |w: f64| expr::format_quantity(w, Dim::FREQUENCY);
+    for field in fields {
+        for (fate, words) in [
+            (Fate::TimeDependent, "kept, rotating"),
+            (Fate::BeyondCutoff, "dropped (beyond the cutoff)"),
+            (Fate::CounterRotating, "dropped (counter-rotating)"),
+        ] {
+            let notes: Vec<&TermNote> = r
+                .notes
+                .iter()
+                .filter(|n| n.field == field && n.fate == fate)
+                .collect();
+            if notes.len() <= FRAME_LINES_PER_FATE {
+                out.extend(notes.iter().map(|n| {
+                    format!(
+                        "{field} on {}: {words}, ν = {}",
+                        n.transition,
+                        freq(n.rotation)
+                    )
+                }));
+            } else {
+                let (lo, hi) = notes.iter().fold((f64::INFINITY, 0.0f64), |(lo, hi), n| {
+                    (lo.min(n.rotation.abs()), hi.max(n.rotation.abs()))
+                });
+                out.push(format!(
+                    "{field}: {} terms {words}, |ν| from {} to {}",
+                    notes.len(),
+                    freq(lo),
+                    freq(hi)
+                ));
+            }
+        }
+    }
+    out
 }
+
+/// How many terms of one field and fate the frame report lists one by one.
+const FRAME_LINES_PER_FATE: usize = 4;
 
 /// Run one evolve block: a single solve, or a parallel sweep, each point optionally averaged.
 fn execute(

@@ -7,7 +7,7 @@
 
 use super::diag::{Diagnostic, did_you_mean};
 use super::expr::{self, Expr};
-use super::markdown::is_name;
+use super::markdown::{is_level_name, is_name};
 use super::path::{self, ObsSpec, ResultPath};
 use super::schema::list;
 use super::source::Span;
@@ -106,14 +106,82 @@ pub struct RateDef<K> {
 /// An `atom` block.
 #[derive(Clone, Debug)]
 pub struct AtomBlock {
-    /// Levels in order.
+    /// Levels in order (hand-made atoms).
     pub levels: Vec<LevelDef>,
-    /// Declared transitions.
+    /// Declared transitions (hand-made atoms).
     pub transitions: Vec<TransitionDef>,
-    /// Decay channels.
+    /// Decay channels (hand-made atoms).
     pub decays: Vec<RateDef<Pair>>,
     /// Dephasing rates.
     pub dephasing: Vec<RateDef<Name>>,
+    /// A line between two manifolds expanded into Zeeman sublevels, instead of `levels`.
+    pub zeeman: Option<ZeemanDef>,
+    /// The quantisation axis in the lab frame, with its span.
+    pub axis: Option<([f64; 3], Span)>,
+}
+
+/// A doubled angular momentum (2J, so that half-integers are exact) and where it is written.
+pub type Twice = (i32, Span);
+
+/// One manifold given by its quantum numbers.
+#[derive(Clone, Debug)]
+pub struct ManifoldDef {
+    /// 2J.
+    pub j: Twice,
+    /// 2I.
+    pub i: i32,
+    /// 2L, for the Landé factor.
+    pub l: Option<Twice>,
+    /// 2S, for the Landé factor.
+    pub s: Option<Twice>,
+    /// g_J as given.
+    pub g_j: Option<f64>,
+    /// g_I (units of μ_B).
+    pub g_i: f64,
+    /// Hyperfine A/ħ (rad/s).
+    pub a: Option<Ex>,
+    /// Hyperfine B/ħ (rad/s).
+    pub b: Option<Ex>,
+    /// The manifold's table.
+    pub span: Span,
+}
+
+/// Where a Zeeman atom's line comes from.
+#[derive(Clone, Debug)]
+pub enum LineSource {
+    /// A species of the table and one of its D lines.
+    Species {
+        /// The species as written, with its span.
+        species: (String, Span),
+        /// 1 or 2 (D1 or D2).
+        line: u8,
+    },
+    /// Two manifolds by quantum numbers.
+    Manifolds {
+        /// Lower manifold.
+        lower: ManifoldDef,
+        /// Upper manifold.
+        upper: ManifoldDef,
+        /// Centroid frequency (rad/s), or the wavelength (m) when `wavelength` is set.
+        frequency: Ex,
+        /// `frequency` holds a wavelength.
+        wavelength: bool,
+        /// Linewidth Γ (1/s), or the lifetime (s) when `lifetime` is set.
+        width: Ex,
+        /// `width` holds a lifetime.
+        lifetime: bool,
+    },
+}
+
+/// A line expanded into Zeeman sublevels.
+#[derive(Clone, Debug)]
+pub struct ZeemanDef {
+    /// The line.
+    pub source: LineSource,
+    /// Magnetic field B (T) along the axis.
+    pub magnetic_field: Option<Ex>,
+    /// Hyperfine levels to keep (groups such as `g2`), empty for all.
+    pub keep: Vec<Name>,
 }
 
 /// How a light's strength is given.
@@ -125,6 +193,26 @@ pub enum StrengthKind {
     Field,
     /// Peak intensity (W/m²).
     Intensity,
+    /// Saturation parameter s = I/I_sat of the reference transition.
+    Saturation,
+}
+
+/// A light's polarisation as written.
+#[derive(Clone, Debug)]
+pub enum PolarizationDef {
+    /// One spherical component q relative to the quantisation axis.
+    Spherical(i8),
+    /// Linear at an angle (rad) from the quantisation axis.
+    Angle(Ex),
+    /// Linear along a lab-frame vector, or elliptical with that major axis.
+    Vector {
+        /// The vector.
+        vector: [f64; 3],
+        /// Where it is written.
+        span: Span,
+        /// Ellipticity angle χ (rad).
+        ellipticity: Option<Ex>,
+    },
 }
 
 /// A light's chirp.
@@ -151,8 +239,10 @@ pub struct LightBlock {
     pub strength: (StrengthKind, Ex),
     /// Phase (rad).
     pub phase: Option<Ex>,
-    /// Spherical polarisation component.
-    pub polarization: i8,
+    /// Polarisation.
+    pub polarization: PolarizationDef,
+    /// Beam direction (lab frame), with its span.
+    pub direction: Option<([f64; 3], Span)>,
     /// FWHM linewidth (rad/s).
     pub linewidth: Option<Ex>,
     /// Chirp.
@@ -368,6 +458,8 @@ pub struct EvolveBlock {
     pub sweep: Vec<AxisDef>,
     /// Ensemble average.
     pub average: Option<AverageDef>,
+    /// The atom's velocity (m/s, three components), with the span of the array.
+    pub velocity: Option<(Vec<Ex>, Span)>,
 }
 
 /// A result path with its span and, when the text maps, its offset.
@@ -626,6 +718,71 @@ impl<'a> Reader<'a> {
         get(t, key).and_then(|n| self.name(key, n))
     }
 
+    /// A level name, which on a Zeeman atom may hold fractions (`g3/2_m1/2`).
+    fn level_name(&mut self, key: &str, node: &Node) -> Option<Name> {
+        let (s, span) = self.string(key, node)?;
+        let trimmed = s.trim();
+        if !is_level_name(trimmed) {
+            self.error(
+                span,
+                format!("`{s}` is not a valid level name"),
+                "level names start with a letter and hold letters, digits, `_`, `-`, and `/` between digits",
+            );
+            return None;
+        }
+        Some(Name {
+            name: trimmed.to_string(),
+            span,
+        })
+    }
+
+    /// A non-negative whole or half-integer (a number or a string such as `"3/2"`), doubled.
+    fn twice(&mut self, key: &str, node: &Node) -> Option<Twice> {
+        let doubled = match &node.value {
+            Value::Int(i) => i.checked_mul(2),
+            Value::Float(x) if (2.0 * x).fract() == 0.0 && x.abs() < 1e6 => Some((2.0 * x) as i64),
+            Value::Str { text, .. } => {
+                let t = text.trim();
+                match t.split_once('/') {
+                    Some((n, "2")) => n.trim().parse::<i64>().ok().filter(|n| n % 2 != 0),
+                    Some(_) => None,
+                    None => t.parse::<i64>().ok().and_then(|n| n.checked_mul(2)),
+                }
+            }
+            _ => {
+                self.wrong_type(key, node, "a number or a string such as \"3/2\"");
+                return None;
+            }
+        };
+        match doubled.filter(|d| (0..=200).contains(d)) {
+            Some(d) => Some((d as i32, node.span.clone())),
+            None => {
+                self.error(
+                    node.span.clone(),
+                    format!("`{key}` must be a whole or half-integer from 0 to 100"),
+                    "e.g. `1`, `1.5` or `\"3/2\"`",
+                );
+                None
+            }
+        }
+    }
+
+    /// Three finite numbers, not all zero.
+    fn vector(&mut self, key: &str, node: &Node) -> Option<([f64; 3], Span)> {
+        let items = self.array(key, node)?;
+        let nums: Option<Vec<f64>> = items.iter().map(|x| self.number(key, x)).collect();
+        let nums = nums?;
+        if nums.len() != 3 || nums.iter().all(|x| *x == 0.0) {
+            self.error(
+                node.span.clone(),
+                format!("`{key}` must be three numbers, not all zero"),
+                "a direction in the lab frame, e.g. `[0, 0, 1]`",
+            );
+            return None;
+        }
+        Some(([nums[0], nums[1], nums[2]], node.span.clone()))
+    }
+
     fn bool(&mut self, t: &Entries, key: &str) -> bool {
         match get(t, key) {
             None => false,
@@ -700,6 +857,46 @@ impl<'a> Reader<'a> {
         }
     }
 
+    /// A light's polarisation: a spherical component, or a table with `angle`, or `vector`
+    /// and an optional `ellipticity`.
+    fn light_polarization(&mut self, node: Option<&Node>) -> PolarizationDef {
+        let Some(node) = node else {
+            return PolarizationDef::Spherical(0);
+        };
+        let Value::Table(t) = &node.value else {
+            return PolarizationDef::Spherical(self.polarization("polarization", Some(node)));
+        };
+        match (get(t, "angle"), get(t, "vector")) {
+            (Some(a), None) => {
+                if let Some(s) = key_span(t, "ellipticity") {
+                    self.error(
+                        s,
+                        "`ellipticity` goes with `vector`, not `angle`",
+                        "elliptical light needs its major axis as a `vector` and the light's `direction`",
+                    );
+                }
+                self.expr("angle", a)
+                    .map_or(PolarizationDef::Spherical(0), PolarizationDef::Angle)
+            }
+            (None, Some(v)) => match self.vector("vector", v) {
+                Some((vector, span)) => PolarizationDef::Vector {
+                    vector,
+                    span,
+                    ellipticity: self.opt_expr(t, "ellipticity"),
+                },
+                None => PolarizationDef::Spherical(0),
+            },
+            _ => {
+                self.error(
+                    node.span.clone(),
+                    "a polarisation table needs exactly one of `angle` and `vector`",
+                    "e.g. `{ angle = \"5 deg\" }` or `{ vector = [1, 0, 0], ellipticity = \"45 deg\" }`",
+                );
+                PolarizationDef::Spherical(0)
+            }
+        }
+    }
+
     fn polarization(&mut self, key: &str, node: Option<&Node>) -> i8 {
         match node.and_then(|n| self.choice(key, n, &["pi", "sigma+", "sigma-"])) {
             Some("sigma+") => 1,
@@ -721,7 +918,7 @@ impl<'a> Reader<'a> {
         let piece = |s: &str, off: usize| -> Option<Name> {
             let t = s.trim();
             let lead = s.len() - s.trim_start().len();
-            is_name(t).then(|| Name {
+            is_level_name(t).then(|| Name {
                 name: t.to_string(),
                 span: match content {
                     Some(c) => c + off + lead..c + off + lead + t.len(),
@@ -814,62 +1011,109 @@ impl<'a> Reader<'a> {
         ParamsBlock { entries, broken }
     }
 
-    /// Read an `atom` body.
+    /// Read an `atom` body: hand-made `levels`, or a line (`species`, or `lower` and `upper`)
+    /// expanded into Zeeman sublevels.
     pub fn atom(&mut self, t: &Entries) -> AtomBlock {
         let mut atom = AtomBlock {
             levels: vec![],
             transitions: vec![],
             decays: vec![],
             dephasing: vec![],
+            zeeman: None,
+            axis: None,
         };
-        match get(t, "levels") {
-            None => self.missing("levels", "add `[levels]` with lines such as `g = \"0 Hz\"`"),
-            Some(node) => {
-                if let Some(levels) = self.table("levels", node) {
-                    if levels.is_empty() {
-                        self.error(
-                            node.span.clone(),
-                            "an atom needs at least one level",
-                            "add lines such as `g = \"0 Hz\"` under `[levels]`",
-                        );
-                    }
-                    for (k, v) in levels {
-                        if !is_name(&k.name) {
+        atom.axis = get(t, "axis").and_then(|n| self.vector("axis", n));
+        let line_keys = ["species", "lower", "upper"];
+        if line_keys.iter().any(|k| get(t, k).is_some()) {
+            if let Some(s) = key_span(t, "levels") {
+                self.error(
+                    s,
+                    "give either hand-made `levels` or a line (`species`, or `lower` and `upper`), not both",
+                    "a line's sublevels are named for you: `g2_m-1`, `e3_m3`, …",
+                );
+            }
+            for key in ["transitions", "decay"] {
+                if let Some(s) = key_span(t, key) {
+                    self.error(
+                        s,
+                        format!("`{key}` is for hand-made levels; a line's dipoles and decays come from its matrix elements"),
+                        "remove it, or describe the atom by `levels`",
+                    );
+                }
+            }
+            atom.zeeman = self.zeeman(t);
+        } else {
+            for key in [
+                "line",
+                "frequency",
+                "wavelength",
+                "linewidth",
+                "lifetime",
+                "magnetic_field",
+                "keep",
+            ] {
+                if let Some(s) = key_span(t, key) {
+                    self.error(
+                        s,
+                        format!(
+                            "`{key}` belongs to a line given by `species` or by `lower` and `upper`"
+                        ),
+                        "hand-made levels have fixed energies and explicit couplings",
+                    );
+                }
+            }
+            match get(t, "levels") {
+                None => self.missing(
+                    "levels",
+                    "add `[levels]` with lines such as `g = \"0 Hz\"`, or name a `species` and its `line`",
+                ),
+                Some(node) => {
+                    if let Some(levels) = self.table("levels", node) {
+                        if levels.is_empty() {
                             self.error(
-                                k.span.clone(),
-                                format!("`{}` is not a valid level name", k.name),
-                                "names start with a letter and hold letters, digits, `_` and `-`",
+                                node.span.clone(),
+                                "an atom needs at least one level",
+                                "add lines such as `g = \"0 Hz\"` under `[levels]`",
                             );
-                            continue;
                         }
-                        let energy = match &v.value {
-                            Value::Table(lt) => match get(lt, "energy") {
-                                Some(e) => self.expr("energy", e),
-                                None => {
-                                    self.error(
-                                        v.span.clone(),
-                                        format!("level `{}` needs an `energy`", k.name),
-                                        "e.g. `{ energy = \"2π × 6.8 GHz\" }`",
-                                    );
-                                    None
-                                }
-                            },
-                            _ => self.expr(&k.name, v),
-                        };
-                        if let Some(energy) = energy {
-                            atom.levels.push(LevelDef {
-                                name: Name {
-                                    name: k.name.clone(),
-                                    span: k.span.clone(),
+                        for (k, v) in levels {
+                            if !is_name(&k.name) {
+                                self.error(
+                                    k.span.clone(),
+                                    format!("`{}` is not a valid level name", k.name),
+                                    "names start with a letter and hold letters, digits, `_` and `-`",
+                                );
+                                continue;
+                            }
+                            let energy = match &v.value {
+                                Value::Table(lt) => match get(lt, "energy") {
+                                    Some(e) => self.expr("energy", e),
+                                    None => {
+                                        self.error(
+                                            v.span.clone(),
+                                            format!("level `{}` needs an `energy`", k.name),
+                                            "e.g. `{ energy = \"2π × 6.8 GHz\" }`",
+                                        );
+                                        None
+                                    }
                                 },
-                                energy,
-                            });
+                                _ => self.expr(&k.name, v),
+                            };
+                            if let Some(energy) = energy {
+                                atom.levels.push(LevelDef {
+                                    name: Name {
+                                        name: k.name.clone(),
+                                        span: k.span.clone(),
+                                    },
+                                    energy,
+                                });
+                            }
                         }
                     }
                 }
             }
         }
-        if let Some(node) = get(t, "transitions")
+        if let Some(node) = get(t, "transitions").filter(|_| atom.zeeman.is_none())
             && let Some(tt) = self.table("transitions", node)
         {
             for (k, v) in tt {
@@ -884,7 +1128,7 @@ impl<'a> Reader<'a> {
                 atom.transitions.push(TransitionDef { pair, dipole, q });
             }
         }
-        if let Some(node) = get(t, "decay")
+        if let Some(node) = get(t, "decay").filter(|_| atom.zeeman.is_none())
             && let Some(dt) = self.table("decay", node)
         {
             for (k, v) in dt {
@@ -914,6 +1158,161 @@ impl<'a> Reader<'a> {
         atom
     }
 
+    /// The line of a Zeeman atom; every problem is reported before giving up.
+    fn zeeman(&mut self, t: &Entries) -> Option<ZeemanDef> {
+        let source = if let Some(sp) = get(t, "species") {
+            for key in [
+                "lower",
+                "upper",
+                "frequency",
+                "wavelength",
+                "linewidth",
+                "lifetime",
+            ] {
+                if let Some(s) = key_span(t, key) {
+                    self.error(
+                        s,
+                        format!("`{key}` comes from the species table here"),
+                        "drop it, or describe the line by `lower` and `upper` instead of `species`",
+                    );
+                }
+            }
+            let species = self
+                .string("species", sp)
+                .map(|(n, span)| (n.trim().to_string(), span));
+            let line = match get(t, "line") {
+                None => {
+                    self.missing("line", "pick the line: `line = \"D1\"` or `line = \"D2\"`");
+                    None
+                }
+                Some(n) => self
+                    .choice("line", n, &["D1", "D2"])
+                    .map(|c| if c == "D1" { 1 } else { 2 }),
+            };
+            LineSource::Species {
+                species: species?,
+                line: line?,
+            }
+        } else {
+            if let Some(s) = key_span(t, "line") {
+                self.error(
+                    s,
+                    "`line` picks a line of a `species`",
+                    "with `lower` and `upper` the line is given by `frequency` and `linewidth`",
+                );
+            }
+            let lower = self.manifold(t, "lower");
+            let upper = self.manifold(t, "upper");
+            let frequency = self.one_of(
+                t,
+                ("frequency", "wavelength"),
+                "the line's centroid, e.g. `frequency = \"2π × 384.23 THz\"` or `wavelength = \"780.24 nm\"`",
+            );
+            let width = self.one_of(
+                t,
+                ("linewidth", "lifetime"),
+                "the upper manifold's decay, e.g. `linewidth = \"2π × 6.07 MHz\"` or `lifetime = \"26.2 ns\"`",
+            );
+            let ((frequency, wavelength), (width, lifetime)) = (frequency?, width?);
+            LineSource::Manifolds {
+                lower: lower?,
+                upper: upper?,
+                frequency,
+                wavelength,
+                width,
+                lifetime,
+            }
+        };
+        let magnetic_field = self.opt_expr(t, "magnetic_field");
+        let keep = get(t, "keep")
+            .and_then(|n| self.array("keep", n).map(<[Node]>::to_vec))
+            .map(|a| {
+                a.iter()
+                    .filter_map(|x| self.level_name("keep", x))
+                    .collect()
+            })
+            .unwrap_or_default();
+        Some(ZeemanDef {
+            source,
+            magnetic_field,
+            keep,
+        })
+    }
+
+    /// Exactly one of two keys holding an expression; the flag tells whether it was the second.
+    fn one_of(&mut self, t: &Entries, keys: (&str, &str), hint: &str) -> Option<(Ex, bool)> {
+        match (get(t, keys.0), get(t, keys.1)) {
+            (Some(a), None) => self.expr(keys.0, a).map(|e| (e, false)),
+            (None, Some(b)) => self.expr(keys.1, b).map(|e| (e, true)),
+            (Some(_), Some(_)) => {
+                let span = key_span(t, keys.1).unwrap_or(self.block.clone());
+                self.error(
+                    span,
+                    format!("give either `{}` or `{}`, not both", keys.0, keys.1),
+                    "",
+                );
+                None
+            }
+            (None, None) => {
+                self.missing(keys.0, hint);
+                None
+            }
+        }
+    }
+
+    /// One manifold by its quantum numbers.
+    fn manifold(&mut self, t: &Entries, side: &str) -> Option<ManifoldDef> {
+        let Some(node) = get(t, side) else {
+            self.missing(
+                side,
+                &format!("describe the {side} manifold, e.g. `{side} = {{ J = \"1/2\", L = 0, S = \"1/2\" }}`"),
+            );
+            return None;
+        };
+        let mt = self.table(side, node)?;
+        let j = match get(mt, "J") {
+            Some(n) => self.twice("J", n),
+            None => {
+                self.error(
+                    node.span.clone(),
+                    format!("the {side} manifold needs `J`"),
+                    "e.g. `J = \"1/2\"`",
+                );
+                None
+            }
+        };
+        let i = get(mt, "I").map(|n| self.twice("I", n).map(|x| x.0));
+        let l = get(mt, "L").and_then(|n| self.twice("L", n));
+        if let Some((two_l, span)) = &l
+            && two_l % 2 != 0
+        {
+            self.error(span.clone(), "`L` must be a whole number", "");
+        }
+        let spin = get(mt, "S").and_then(|n| self.twice("S", n));
+        if get(mt, "L").is_some() != get(mt, "S").is_some() {
+            self.error(
+                node.span.clone(),
+                "give both `L` and `S` (for the Landé factor), or `g_J`",
+                "",
+            );
+        }
+        let g_j = get(mt, "g_J").and_then(|n| self.number("g_J", n));
+        let g_i = get(mt, "g_I").map(|n| self.number("g_I", n));
+        let a = self.opt_expr(mt, "A");
+        let b = self.opt_expr(mt, "B");
+        Some(ManifoldDef {
+            j: j?,
+            i: i.unwrap_or(Some(0))?,
+            l,
+            s: spin,
+            g_j,
+            g_i: g_i.unwrap_or(Some(0.0))?,
+            a,
+            b,
+            span: node.span.clone(),
+        })
+    }
+
     /// Read a `light` body.
     pub fn light(&mut self, t: &Entries) -> Option<LightBlock> {
         let atom = self.opt_name(t, "atom");
@@ -940,13 +1339,14 @@ impl<'a> Reader<'a> {
             ("rabi", StrengthKind::Rabi),
             ("field", StrengthKind::Field),
             ("intensity", StrengthKind::Intensity),
+            ("saturation", StrengthKind::Saturation),
         ];
         let given: Vec<_> = kinds.iter().filter(|(k, _)| get(t, k).is_some()).collect();
         let strength = match given.as_slice() {
             [] => {
                 self.missing(
                     "rabi",
-                    "give the strength as `rabi`, `field` or `intensity`",
+                    "give the strength as `rabi`, `field`, `intensity` or `saturation`",
                 );
                 None
             }
@@ -955,14 +1355,15 @@ impl<'a> Reader<'a> {
                 let s = key_span(t, k2).unwrap_or(self.block.clone());
                 self.error(
                     s,
-                    "give one of `rabi`, `field` and `intensity`",
-                    "they are three ways to say the same thing",
+                    "give one of `rabi`, `field`, `intensity` and `saturation`",
+                    "they are four ways to say the same thing",
                 );
                 None
             }
         };
         let phase = self.opt_expr(t, "phase");
-        let polarization = self.polarization("polarization", get(t, "polarization"));
+        let polarization = self.light_polarization(get(t, "polarization"));
+        let direction = get(t, "direction").and_then(|n| self.vector("direction", n));
         let linewidth = self.opt_expr(t, "linewidth");
         let chirp = match get(t, "chirp") {
             None => None,
@@ -990,6 +1391,7 @@ impl<'a> Reader<'a> {
             strength: strength?,
             phase,
             polarization,
+            direction,
             linewidth,
             chirp,
         })
@@ -1219,7 +1621,7 @@ impl<'a> Reader<'a> {
             None => StartDef::Default,
             Some(n) => match &n.value {
                 Value::Str { .. } => self
-                    .name("start", n)
+                    .level_name("start", n)
                     .map_or(StartDef::Default, StartDef::Level),
                 Value::Table(st) => {
                     if let Some(m) = get(st, "mixture") {
@@ -1230,7 +1632,11 @@ impl<'a> Reader<'a> {
                         let tt = self.table("thermal", th).unwrap_or(&[]);
                         let levels = get(tt, "levels")
                             .and_then(|l| self.array("levels", l).map(|a| a.to_vec()))
-                            .map(|a| a.iter().filter_map(|x| self.name("levels", x)).collect())
+                            .map(|a| {
+                                a.iter()
+                                    .filter_map(|x| self.level_name("levels", x))
+                                    .collect()
+                            })
                             .unwrap_or_default();
                         match self.opt_expr(tt, "temperature") {
                             Some(temperature) => StartDef::Thermal {
@@ -1480,7 +1886,21 @@ impl<'a> Reader<'a> {
                 }
             }
         }
+        let velocity = get(t, "velocity").and_then(|n| {
+            let items = self.array("velocity", n)?;
+            if items.len() != 3 {
+                self.error(
+                    n.span.clone(),
+                    "`velocity` needs three components",
+                    "e.g. `velocity = [\"0 m/s\", \"0 m/s\", \"v\"]`",
+                );
+                return None;
+            }
+            let exs: Option<Vec<Ex>> = items.iter().map(|x| self.expr("velocity", x)).collect();
+            Some((exs?, n.span.clone()))
+        });
         EvolveBlock {
+            velocity,
             atom,
             sequence,
             steady,

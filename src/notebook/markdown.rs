@@ -222,6 +222,19 @@ pub fn is_name(s: &str) -> bool {
         && chars.all(|c| c.is_alphanumeric() || c == '_' || c == '-')
 }
 
+/// Whether `s` can name a level: a name, or a Zeeman sublevel or group whose half-integers are
+/// written as fractions (`g9/2_m-7/2`, `e3/2`), where a `/` sits between digits.
+pub fn is_level_name(s: &str) -> bool {
+    let b = s.as_bytes();
+    let slashes_ok = b.iter().enumerate().all(|(i, &c)| {
+        c != b'/'
+            || (i > 0
+                && b[i - 1].is_ascii_digit()
+                && b.get(i + 1).is_some_and(|d| d.is_ascii_digit()))
+    });
+    slashes_ok && is_name(&s.replace('/', "_"))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

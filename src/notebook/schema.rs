@@ -60,6 +60,7 @@ pub struct KindDef {
 
 const EXPR: &str = "string (expression)";
 const ANG: &str = "angular frequency (rad/s)";
+const HALF: &str = "number or string (`\"3/2\"`)";
 
 /// Every block kind with its keys. `rust` and `data` are reserved and have no keys.
 pub const KINDS: &[KindDef] = &[
@@ -82,8 +83,8 @@ pub const KINDS: &[KindDef] = &[
                 "levels",
                 "table",
                 "—",
-                "required",
-                "the levels, by name, in order",
+                "required unless `species` or `lower`",
+                "hand-made levels, by name, in order",
             ),
             k(
                 "levels.NAME",
@@ -155,6 +156,183 @@ pub const KINDS: &[KindDef] = &[
                 "required",
                 "the rate at which every coherence with this level decays",
             ),
+            k(
+                "species",
+                "string",
+                "—",
+                "none",
+                "a species of the table (`notebooks-spec/SPECIES.md`), e.g. `\"87Rb\"`: the line's manifolds expand into Zeeman sublevels",
+            ),
+            k(
+                "line",
+                "string: `D1` or `D2`",
+                "—",
+                "required with `species`",
+                "which line of the species",
+            ),
+            k(
+                "lower",
+                "table",
+                "—",
+                "with `upper`, instead of `species`",
+                "the lower manifold by its quantum numbers",
+            ),
+            k(
+                "lower.J",
+                HALF,
+                "—",
+                "required",
+                "electronic angular momentum J",
+            ),
+            k("lower.I", HALF, "—", "0", "nuclear spin I"),
+            k(
+                "lower.L",
+                "integer",
+                "—",
+                "none",
+                "orbital angular momentum L, for g_J by the Landé formula",
+            ),
+            k(
+                "lower.S",
+                HALF,
+                "—",
+                "none",
+                "spin S, for g_J by the Landé formula",
+            ),
+            k(
+                "lower.g_J",
+                "number",
+                "—",
+                "Landé from L and S, else required when the field is not zero",
+                "electronic g-factor g_J",
+            ),
+            k(
+                "lower.g_I",
+                "number",
+                "—",
+                "0",
+                "nuclear g-factor g_I in units of μ_B (sign as in the species table)",
+            ),
+            k(
+                "lower.A",
+                EXPR,
+                ANG,
+                "\"0 Hz\"",
+                "magnetic-dipole hyperfine constant A/ħ",
+            ),
+            k(
+                "lower.B",
+                EXPR,
+                ANG,
+                "\"0 Hz\"",
+                "electric-quadrupole hyperfine constant B/ħ",
+            ),
+            k(
+                "upper",
+                "table",
+                "—",
+                "with `upper`, instead of `species`",
+                "the upper manifold by its quantum numbers",
+            ),
+            k(
+                "upper.J",
+                HALF,
+                "—",
+                "required",
+                "electronic angular momentum J",
+            ),
+            k("upper.I", HALF, "—", "0", "nuclear spin I"),
+            k(
+                "upper.L",
+                "integer",
+                "—",
+                "none",
+                "orbital angular momentum L, for g_J by the Landé formula",
+            ),
+            k(
+                "upper.S",
+                HALF,
+                "—",
+                "none",
+                "spin S, for g_J by the Landé formula",
+            ),
+            k(
+                "upper.g_J",
+                "number",
+                "—",
+                "Landé from L and S, else required when the field is not zero",
+                "electronic g-factor g_J",
+            ),
+            k(
+                "upper.g_I",
+                "number",
+                "—",
+                "0",
+                "nuclear g-factor g_I in units of μ_B (sign as in the species table)",
+            ),
+            k(
+                "upper.A",
+                EXPR,
+                ANG,
+                "\"0 Hz\"",
+                "magnetic-dipole hyperfine constant A/ħ",
+            ),
+            k(
+                "upper.B",
+                EXPR,
+                ANG,
+                "\"0 Hz\"",
+                "electric-quadrupole hyperfine constant B/ħ",
+            ),
+            k(
+                "frequency",
+                EXPR,
+                ANG,
+                "with `lower`: `frequency` or `wavelength`",
+                "the line's centroid angular frequency ω₀",
+            ),
+            k(
+                "wavelength",
+                EXPR,
+                "length (m)",
+                "—",
+                "the line's vacuum wavelength λ (ω₀ = 2πc/λ)",
+            ),
+            k(
+                "linewidth",
+                EXPR,
+                "rate (1/s)",
+                "with `lower`: `linewidth` or `lifetime`",
+                "the natural linewidth Γ of the upper manifold (its total decay rate)",
+            ),
+            k(
+                "lifetime",
+                EXPR,
+                "time (s)",
+                "—",
+                "the upper manifold's lifetime τ = 1/Γ",
+            ),
+            k(
+                "magnetic_field",
+                EXPR,
+                "magnetic field (T)",
+                "\"0 G\"",
+                "the field B along `axis`; sublevels are the hyperfine + Zeeman eigenstates at B",
+            ),
+            k(
+                "axis",
+                "array of three numbers",
+                "—",
+                "[0, 0, 1]",
+                "the quantisation axis (the field's direction) in the lab frame",
+            ),
+            k(
+                "keep",
+                "array of strings (level groups)",
+                "—",
+                "every sublevel",
+                "the hyperfine levels to keep, e.g. `[\"g2\", \"e3\"]`; kept upper levels must decay only to kept lower ones",
+            ),
         ],
     },
     KindDef {
@@ -173,7 +351,7 @@ pub const KINDS: &[KindDef] = &[
                 "string `\"LOWER -> UPPER\"`",
                 "—",
                 "required",
-                "the reference transition for the detuning and the Rabi frequency",
+                "the reference transition for the detuning and the Rabi frequency; on a Zeeman atom a sublevel pair (`\"g2_m2 -> e3_m3\"`) or a hyperfine pair (`\"g2 -> e3\"`, the zero-field line)",
             ),
             k(
                 "detuning",
@@ -193,30 +371,65 @@ pub const KINDS: &[KindDef] = &[
                 "rabi",
                 EXPR,
                 ANG,
-                "one of rabi, field, intensity",
+                "one of rabi, field, intensity, saturation",
                 "the peak Rabi frequency Ω on the reference transition",
             ),
             k(
                 "field",
                 EXPR,
                 "electric field (V/m)",
-                "one of rabi, field, intensity",
+                "one of rabi, field, intensity, saturation",
                 "the peak electric-field amplitude E₀",
             ),
             k(
                 "intensity",
                 EXPR,
                 "intensity (W/m²)",
-                "one of rabi, field, intensity",
+                "one of rabi, field, intensity, saturation",
                 "the peak intensity I = ½ c ε₀ E₀²",
+            ),
+            k(
+                "saturation",
+                EXPR,
+                "—",
+                "one of rabi, field, intensity, saturation",
+                "s = I/I_sat of the `drives` transition for this polarisation: Ω = Γ √(s/2) there",
             ),
             k("phase", EXPR, "rad", "\"0\"", "the phase φ of the field"),
             k(
                 "polarization",
-                "string: `pi`, `sigma+` or `sigma-`",
+                "string: `pi`, `sigma+` or `sigma-`, or a table",
                 "—",
                 "\"pi\"",
-                "the light's spherical polarisation component",
+                "the light's polarisation relative to the quantisation axis",
+            ),
+            k(
+                "polarization.angle",
+                EXPR,
+                "rad",
+                "—",
+                "linear, at this angle θ from the quantisation axis",
+            ),
+            k(
+                "polarization.vector",
+                "array of three numbers",
+                "—",
+                "—",
+                "linear along this lab-frame vector, or the major axis of elliptical light",
+            ),
+            k(
+                "polarization.ellipticity",
+                EXPR,
+                "rad",
+                "0",
+                "with `vector`: χ = ±45° is circular with ± helicity about `direction`",
+            ),
+            k(
+                "direction",
+                "array of three numbers",
+                "—",
+                "none",
+                "the beam direction k̂ in the lab frame (for `ellipticity` and for an atom's `velocity`)",
             ),
             k(
                 "linewidth",
@@ -442,10 +655,10 @@ pub const KINDS: &[KindDef] = &[
             ),
             k(
                 "start",
-                "string (level) or table",
+                "string (level or group) or table",
                 "—",
                 "the first level",
-                "the initial state",
+                "the initial state; a group (`\"g\"`, `\"g2\"`) is an equal mixture of its sublevels",
             ),
             k(
                 "start.mixture",
@@ -459,7 +672,7 @@ pub const KINDS: &[KindDef] = &[
                 "number",
                 "—",
                 "—",
-                "the weight of a level (normalised)",
+                "the weight of a level, or of a group spread evenly over its sublevels (normalised)",
             ),
             k(
                 "start.superposition",
@@ -487,7 +700,7 @@ pub const KINDS: &[KindDef] = &[
                 "array of strings",
                 "—",
                 "required",
-                "the levels",
+                "the levels (groups stand for their sublevels)",
             ),
             k(
                 "start.thermal.temperature",
@@ -543,7 +756,14 @@ pub const KINDS: &[KindDef] = &[
                 "array of strings",
                 "—",
                 "required",
-                "what to record: `population(L)`, `population(L1, L2)`, `coherence(L1, L2)`, `bloch(L1, L2)`, `fidelity(L)`, `scattering`, `norm`",
+                "what to record: `population(L)`, `population(L1, L2)` (a sum; a group sums its sublevels), `coherence(L1, L2)`, `bloch(L1, L2)`, `fidelity(L)`, `scattering`, `norm`",
+            ),
+            k(
+                "velocity",
+                "array of three strings (expressions)",
+                "velocity (m/s)",
+                "at rest",
+                "the atom's velocity in the lab frame: each light is Doppler shifted by −k·v (lights need a `direction`)",
             ),
             k(
                 "samples",
@@ -760,8 +980,10 @@ pub fn kind(kind: &str) -> Option<&'static KindDef> {
     KINDS.iter().find(|k| k.kind == kind)
 }
 
+/// A placeholder component is a word of capitals (`NAME`, `LEVEL`); single capitals (`J`, `A`)
+/// are the quantum numbers and constants of the trade, written as physicists write them.
 fn is_placeholder(component: &str) -> bool {
-    component.chars().all(|c| c.is_ascii_uppercase())
+    component.len() > 1 && component.chars().all(|c| c.is_ascii_uppercase())
 }
 
 /// The key definitions directly below `prefix` (a dotted path of definition components).
