@@ -449,7 +449,13 @@ mod tests {
         assert!(!atom.is_open());
         let d = atom.with_dephasing(e, 2.0).unwrap();
         assert!(d.is_open());
-        assert_eq!(d.dephasing(), &[Dephasing { level: e, rate: 2.0 }]);
+        assert_eq!(
+            d.dephasing(),
+            &[Dephasing {
+                level: e,
+                rate: 2.0
+            }]
+        );
         assert!(matches!(
             atom.with_dephasing(7, 1.0),
             Err(Error::UnknownLevel { index: 7, .. })

@@ -14,7 +14,7 @@ use crate::atom::Atom;
 use crate::error::Error;
 use crate::field::{C_LIGHT, EPSILON_0, HBAR};
 use crate::linalg::C64;
-use crate::zeeman::Hyperfine;
+use crate::zeeman::{Hyperfine, ZeemanModel};
 
 /// An electric-dipole line J → J' between two hyperfine manifolds.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -91,30 +91,6 @@ fn fine_element(two_j: i32, two_mj: i32, two_jp: i32, two_mjp: i32, q: i32) -> f
     sign * f64::from(two_j + 1).sqrt() * w
 }
 
-/// The zero-field hyperfine level 2F each sublevel connects to. Within one m block levels never
-/// cross as the field grows (they share every symmetry), so the k-th lowest sublevel of a block
-/// belongs to the k-th lowest zero-field level F ≥ |m| ([`Hyperfine::zero_field_energy`]).
-fn zero_field_labels(m: &Hyperfine, levels: &[crate::zeeman::Sublevel]) -> Vec<i32> {
-    let energy = |two_f: i32| m.zero_field_energy(two_f).unwrap_or(0.0);
-    let mut out = vec![0; levels.len()];
-    for two_m in (-(m.two_j + m.two_i)..=m.two_j + m.two_i).step_by(2) {
-        let mut fs: Vec<i32> = m
-            .two_fs()
-            .into_iter()
-            .filter(|f| two_m.abs() <= *f)
-            .collect();
-        fs.sort_by(|a, b| energy(*a).total_cmp(&energy(*b)));
-        let mut idx: Vec<usize> = (0..levels.len())
-            .filter(|&k| levels[k].two_m == two_m)
-            .collect();
-        idx.sort_by(|&a, &b| levels[a].energy.total_cmp(&levels[b].energy));
-        for (k, f) in idx.into_iter().zip(fs) {
-            out[k] = f;
-        }
-    }
-    out
-}
-
 impl Line {
     /// The zero-field angular frequency (rad/s) of the hyperfine transition 2F → 2F' (the
     /// line's centroid frequency plus the two levels' hyperfine shifts); `None` when either is
@@ -148,6 +124,17 @@ impl Line {
         keep_ground: impl Fn(i32) -> bool,
         keep_excited: impl Fn(i32) -> bool,
     ) -> Result<LineAtom, Error> {
+        self.expand_with(ZeemanModel::Full, b_field, keep_ground, keep_excited)
+    }
+
+    /// [`Line::expand`] with the sublevels of the given [`ZeemanModel`].
+    pub fn expand_with(
+        &self,
+        model: ZeemanModel,
+        b_field: f64,
+        keep_ground: impl Fn(i32) -> bool,
+        keep_excited: impl Fn(i32) -> bool,
+    ) -> Result<LineAtom, Error> {
         if !(self.omega > 0.0
             && self.gamma > 0.0
             && self.omega.is_finite()
@@ -162,13 +149,13 @@ impl Line {
         let d_red = self.reduced_dipole();
         let (g, e) = (&self.ground, &self.excited);
         let (gb, eb) = (g.basis(), e.basis());
-        let gl = g.sublevels(b_field)?;
-        let el = e.sublevels(b_field)?;
-        let (g_f, e_f) = (zero_field_labels(g, &gl), zero_field_labels(e, &el));
+        let gl = g.sublevels_with(model, b_field)?;
+        let el = e.sublevels_with(model, b_field)?;
         let mut b = Atom::builder();
         let mut labels = Vec::new();
         let mut g_ids = Vec::new();
-        for (s, &f) in gl.iter().zip(&g_f) {
+        for s in &gl {
+            let f = s.two_f;
             if !keep_ground(f) {
                 continue;
             }
@@ -182,7 +169,8 @@ impl Line {
             });
         }
         let mut e_ids = Vec::new();
-        for (s, &f) in el.iter().zip(&e_f) {
+        for s in &el {
+            let f = s.two_f;
             if !keep_excited(f) {
                 continue;
             }

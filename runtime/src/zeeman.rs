@@ -74,8 +74,21 @@ pub struct Sublevel {
     pub energy: f64,
     /// 2(m_J + m_I), conserved along the field.
     pub two_m: i32,
+    /// 2F of the zero-field hyperfine level the state connects to.
+    pub two_f: i32,
     /// Amplitudes on the uncoupled basis, ordered as [`Hyperfine::basis`].
     pub amplitudes: Vec<f64>,
+}
+
+/// How the magnetic field enters the sublevels.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum ZeemanModel {
+    /// The hyperfine + Zeeman Hamiltonian diagonalised at the field: right at any field.
+    #[default]
+    Full,
+    /// The weak-field limit: the zero-field states |F, m⟩ with energies E_F + g_F m μ_B B (no
+    /// mixing of F levels); for comparison with the linear approximation people often use.
+    Linear,
 }
 
 impl Hyperfine {
@@ -155,6 +168,100 @@ impl Hyperfine {
                 out.push(Sublevel {
                     energy: eig.eigenvalues[k],
                     two_m,
+                    two_f: 0,
+                    amplitudes,
+                });
+            }
+        }
+        out.sort_by(|a, b| a.energy.total_cmp(&b.energy));
+        self.label_zero_field(&mut out);
+        Ok(out)
+    }
+
+    /// Sets each sublevel's zero-field 2F. Within one m block levels never cross as the field
+    /// grows (they share every symmetry), so the k-th lowest sublevel of a block belongs to the
+    /// k-th lowest zero-field level F ≥ |m| ([`Hyperfine::zero_field_energy`]).
+    fn label_zero_field(&self, levels: &mut [Sublevel]) {
+        let energy = |two_f: i32| self.zero_field_energy(two_f).unwrap_or(0.0);
+        for two_m in (-(self.two_j + self.two_i)..=self.two_j + self.two_i).step_by(2) {
+            let mut fs: Vec<i32> = self
+                .two_fs()
+                .into_iter()
+                .filter(|f| two_m.abs() <= *f)
+                .collect();
+            fs.sort_by(|a, b| energy(*a).total_cmp(&energy(*b)));
+            let mut idx: Vec<usize> = (0..levels.len())
+                .filter(|&k| levels[k].two_m == two_m)
+                .collect();
+            idx.sort_by(|&a, &b| levels[a].energy.total_cmp(&levels[b].energy));
+            for (k, f) in idx.into_iter().zip(fs) {
+                levels[k].two_f = f;
+            }
+        }
+    }
+
+    /// The weak-field Landé factor of hyperfine level 2F:
+    /// g_F = g_J [F(F+1) − I(I+1) + J(J+1)] / 2F(F+1) + g_I [F(F+1) + I(I+1) − J(J+1)] / 2F(F+1)
+    /// (Steck, *Rubidium 87 D Line Data*, rev. 2.2, 2021, eq. 23; g_I in units of μ_B as here).
+    /// `None` when F is not a level of the manifold; 0 for F = 0.
+    pub fn g_f(&self, two_f: i32) -> Option<f64> {
+        if !self.two_fs().contains(&two_f) {
+            return None;
+        }
+        if two_f == 0 {
+            return Some(0.0);
+        }
+        let x = |t: i32| {
+            let v = f64::from(t) / 2.0;
+            v * (v + 1.0)
+        };
+        let (ff, ii, jj) = (x(two_f), x(self.two_i), x(self.two_j));
+        Some((self.g_j * (ff - ii + jj) + self.g_i * (ff + ii - jj)) / (2.0 * ff))
+    }
+
+    /// The sublevels in the given [`ZeemanModel`], sorted by energy.
+    pub fn sublevels_with(&self, model: ZeemanModel, b_field: f64) -> Result<Vec<Sublevel>, Error> {
+        match model {
+            ZeemanModel::Full => self.sublevels(b_field),
+            ZeemanModel::Linear => self.sublevels_linear(b_field),
+        }
+    }
+
+    /// The weak-field sublevels |F, m⟩ = Σ ⟨J m_J I m_I|F m⟩ |m_J, m_I⟩ with energies
+    /// E_F + g_F m μ_B B/ħ ([`ZeemanModel::Linear`]), sorted by energy.
+    pub fn sublevels_linear(&self, b_field: f64) -> Result<Vec<Sublevel>, Error> {
+        // The same input checks as the full model.
+        self.sublevels(0.0)?;
+        if !b_field.is_finite() {
+            return Err(Error::NonFinite {
+                what: "the magnetic field".into(),
+            });
+        }
+        let basis = self.basis();
+        let mu = BOHR_MAGNETON / HBAR * b_field;
+        let mut out = Vec::with_capacity(basis.len());
+        for two_f in self.two_fs() {
+            let (e0, g) = (
+                self.zero_field_energy(two_f).unwrap_or(0.0),
+                self.g_f(two_f).unwrap_or(0.0),
+            );
+            for two_m in (-two_f..=two_f).step_by(2) {
+                let amplitudes = basis
+                    .iter()
+                    .map(|&(mj, mi)| {
+                        if mj + mi == two_m {
+                            crate::angular::clebsch_gordan(
+                                self.two_j, mj, self.two_i, mi, two_f, two_m,
+                            )
+                        } else {
+                            0.0
+                        }
+                    })
+                    .collect();
+                out.push(Sublevel {
+                    energy: e0 + g * mu * f64::from(two_m) / 2.0,
+                    two_m,
+                    two_f,
                     amplitudes,
                 });
             }
@@ -373,5 +480,72 @@ mod tests {
         }
         assert_eq!(p32.two_fs(), vec![0, 2, 4, 6]);
         assert_eq!(p32.zero_field_energy(8), None);
+    }
+
+    /// The weak-field g_F is the slope of the full diagonalisation at small fields, for every
+    /// hyperfine level of every manifold of the species table (Steck's eq. 23 against his
+    /// Hamiltonian; the slope over ±10 nT, where the quadratic term is below 1e-6 of it).
+    #[test]
+    fn g_f_is_the_weak_field_slope() {
+        for s in crate::species::SPECIES {
+            for line in [crate::species::DLine::D1, crate::species::DLine::D2] {
+                let l = s.line(line).unwrap();
+                for h in [l.ground, l.excited] {
+                    let b = 1e-8;
+                    let (up, down) = (h.sublevels(b).unwrap(), h.sublevels(-b).unwrap());
+                    for two_f in h.two_fs() {
+                        let g = h.g_f(two_f).unwrap();
+                        let two_m = two_f;
+                        let find = |v: &[Sublevel]| {
+                            v.iter()
+                                .find(|x| x.two_f == two_f && x.two_m == two_m)
+                                .unwrap()
+                                .energy
+                        };
+                        let slope = (find(&up) - find(&down))
+                            / (2.0 * b * BOHR_MAGNETON / HBAR * f64::from(two_m).max(1.0) / 2.0);
+                        let want = if two_f == 0 { 0.0 } else { g };
+                        assert!(
+                            (slope - want).abs() < 1e-5 * g.abs().max(1.0),
+                            "{} 2F = {two_f}: slope {slope} vs g_F {g}",
+                            s.name
+                        );
+                    }
+                }
+            }
+        }
+        assert_eq!(rb87_ground().g_f(6), None);
+    }
+
+    /// The linear model holds the zero-field states |F, m⟩ (normalised, definite m) at energies
+    /// E_F + g_F m μ_B B, and agrees with the full one to second order in the field.
+    #[test]
+    fn linear_model_is_the_weak_field_limit() {
+        let h = rb87_ground();
+        let b = 1e-6;
+        let lin = h.sublevels_linear(b).unwrap();
+        let full = h.sublevels(b).unwrap();
+        assert_eq!(lin.len(), 8);
+        for l in &lin {
+            let norm: f64 = l.amplitudes.iter().map(|a| a * a).sum();
+            assert!((norm - 1.0).abs() < 1e-14);
+            let want = h.zero_field_energy(l.two_f).unwrap()
+                + h.g_f(l.two_f).unwrap() * BOHR_MAGNETON / HBAR * b * f64::from(l.two_m) / 2.0;
+            assert!((l.energy - want).abs() < 1e-9 * want.abs());
+            let f = full
+                .iter()
+                .find(|x| x.two_f == l.two_f && x.two_m == l.two_m)
+                .unwrap();
+            // The second-order shift (g_J μ_B B)²/(2ΔE_hf) ≈ 2π × 0.3 Hz here.
+            assert!(
+                (l.energy - f.energy).abs() < TAU * 1.0,
+                "{}",
+                l.energy - f.energy
+            );
+        }
+        assert_eq!(
+            h.sublevels_with(ZeemanModel::Linear, b).unwrap(),
+            h.sublevels_linear(b).unwrap()
+        );
     }
 }

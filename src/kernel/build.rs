@@ -9,7 +9,7 @@ use fieldbook_runtime::manifold::Line;
 use fieldbook_runtime::prelude::*;
 use fieldbook_runtime::species::{DLine, SPECIES, Species};
 use fieldbook_runtime::state::State as RtState;
-use fieldbook_runtime::zeeman::{Hyperfine, lande_g_j};
+use fieldbook_runtime::zeeman::{Hyperfine, ZeemanModel, lande_g_j};
 
 use super::scope::Scope;
 use crate::notebook::blocks::{
@@ -602,7 +602,13 @@ impl Builder<'_> {
             );
             return None;
         }
-        let la = match line.expand(b_field, |f| kept(&keep_g, f), |f| kept(&keep_e, f)) {
+        let model = if z.linear {
+            ZeemanModel::Linear
+        } else {
+            ZeemanModel::Full
+        };
+        let la = match line.expand_with(model, b_field, |f| kept(&keep_g, f), |f| kept(&keep_e, f))
+        {
             Ok(la) => la,
             Err(e) => {
                 let at = z

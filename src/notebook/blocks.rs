@@ -182,6 +182,8 @@ pub struct ZeemanDef {
     pub magnetic_field: Option<Ex>,
     /// Hyperfine levels to keep (groups such as `g2`), empty for all.
     pub keep: Vec<Name>,
+    /// The weak-field (linear) Zeeman model instead of the full diagonalisation.
+    pub linear: bool,
 }
 
 /// How a light's strength is given.
@@ -1051,6 +1053,7 @@ impl<'a> Reader<'a> {
                 "lifetime",
                 "magnetic_field",
                 "keep",
+                "zeeman",
             ] {
                 if let Some(s) = key_span(t, key) {
                     self.error(
@@ -1232,10 +1235,13 @@ impl<'a> Reader<'a> {
                     .collect()
             })
             .unwrap_or_default();
+        let linear = get(t, "zeeman").and_then(|n| self.choice("zeeman", n, &["full", "linear"]))
+            == Some("linear");
         Some(ZeemanDef {
             source,
             magnetic_field,
             keep,
+            linear,
         })
     }
 

@@ -320,6 +320,13 @@ pub const KINDS: &[KindDef] = &[
                 "the field B along `axis`; sublevels are the hyperfine + Zeeman eigenstates at B",
             ),
             k(
+                "zeeman",
+                "string: `full` or `linear`",
+                "—",
+                "\"full\"",
+                "sublevels diagonalised at the field, or the weak-field |F, m⟩ at E_F + g_F m μ_B B",
+            ),
+            k(
                 "axis",
                 "array of three numbers",
                 "—",
