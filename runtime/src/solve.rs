@@ -21,7 +21,9 @@ use crate::state::State;
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[non_exhaustive]
 pub enum Method {
-    /// Choose per segment: exact propagation where H is constant, Runge–Kutta elsewhere.
+    /// Choose per segment: exact propagation where H is constant (for an open atom the
+    /// Liouvillian exponential, when at most 144 entries of ρ can become non-zero), Runge–Kutta
+    /// elsewhere.
     Auto,
     /// Exact propagation of piecewise-constant Hamiltonians by Hermitian eigendecomposition
     /// (pure or closed mixed states).
