@@ -1,7 +1,8 @@
 //! Side-by-side benchmark: each problem solved by the runtime and by the numpy/scipy reference
 //! (`benches/reference/problems.py`), alternating A/B in one run; prints times, ratios and the
 //! accuracy each side reached. Run with `cargo bench -p fieldbook-runtime --bench compare`
-//! (optionally followed by `-- p1 p2 …` to pick problems).
+//! (optionally followed by `-- p1 p2 …` to pick problems; `-- p5-dump` writes the P5 model
+//! for the reference).
 
 use std::f64::consts::PI;
 use std::path::PathBuf;
@@ -272,6 +273,172 @@ fn p4_setup() -> (SteadyPrepared, Vec<f64>, f64, f64) {
     )
 }
 
+/// P5: σ⁺ optical pumping on the whole ⁸⁷Rb D2 manifold (24 sublevels; the tests' scenario,
+/// `common::rb87_d2_pumping`), both beams on for 10 µs from the uniform ground mixture, the
+/// stretched population recorded at 11 equally spaced times.
+const P5_DURATION: f64 = 10e-6;
+/// Sample times of P5, 0 to 10 µs inclusive.
+const P5_SAMPLES: usize = 11;
+
+fn p5_setup(method: Method) -> (common::Pumping, Problem, Prepared) {
+    let s = common::rb87_d2_pumping(0.0);
+    let mut p = s.problem(P5_DURATION, vec![Observable::Population(s.stretched)]);
+    p.samples = Samples::Uniform(P5_SAMPLES);
+    p.method = method;
+    p.tolerance = Tolerance {
+        rtol: 1e-8,
+        atol: 1e-10,
+    };
+    let prepared = Prepared::new(&p).expect("p5 problem");
+    (s, p, prepared)
+}
+
+/// The P5 model exactly as the runtime solves it: H in the rotating frame (rad/s, row-major,
+/// constant while both beams are on), the jumps √Γ|to⟩⟨from|, ρ₀'s diagonal and the sample times.
+fn p5_model_json(s: &common::Pumping, p: &Problem, prepared: &Prepared) -> Value {
+    let atom = &s.line.atom;
+    let n = atom.n();
+    let mut h = vec![C64::new(0.0, 0.0); n * n];
+    prepared.hamiltonian().fill(0.5 * P5_DURATION, &mut h);
+    let jumps: Vec<Value> = atom
+        .decays()
+        .iter()
+        .filter(|d| d.rate > 0.0)
+        .map(|d| serde_json::json!({"from": d.from, "to": d.to, "rate": d.rate}))
+        .collect();
+    let rho0: Vec<f64> = s
+        .line
+        .labels
+        .iter()
+        .map(|l| if l.excited { 0.0 } else { 0.125 })
+        .collect();
+    let times: Vec<f64> = (0..P5_SAMPLES)
+        .map(|i| P5_DURATION * i as f64 / (P5_SAMPLES - 1) as f64)
+        .collect();
+    let fields: Vec<Value> = s
+        .fields
+        .iter()
+        .map(|f| {
+            let tr = f.reference().expect("referenced field");
+            serde_json::json!({
+                "name": f.name(),
+                "transition": atom.transition_label(tr),
+                "polarization": "sigma+",
+                "detuning_rad_per_s": 0.0,
+                "rabi_rad_per_s": match f.strength() { Strength::Rabi { rabi, .. } => *rabi, _ => f64::NAN },
+            })
+        })
+        .collect();
+    let (_, report) = fieldbook_runtime::frame::build(&p.atom, &p.fields, &p.sequence, p.frame)
+        .expect("p5 frame");
+    let count = |fate| report.with_fate(fate).count();
+    serde_json::json!({
+        "problem": "p5",
+        "made_by": "cargo bench -p fieldbook-runtime --bench compare -- p5-dump",
+        "description": "87Rb D2 (species table), all 24 sublevels at 0.1 G along z; sigma+ pump on F=2 -> F'=3 (s = 1) and sigma+ repumper on F=1 -> F'=2, both resonant, with decay; rotating frame with cutoff 2pi x 1 GHz",
+        "n": n,
+        "sublevels": s.line.labels.iter().map(|l| serde_json::json!({"name": l.name, "excited": l.excited, "two_f": l.two_f, "two_m": l.two_m})).collect::<Vec<_>>(),
+        "stretched_index": s.stretched,
+        "h": {"n": n, "re": h.iter().map(|z| z.re).collect::<Vec<_>>(), "im": h.iter().map(|z| z.im).collect::<Vec<_>>()},
+        "jumps": jumps,
+        "jump_operators": "sqrt(rate) |to><from|",
+        "rho0_diagonal": rho0,
+        "sample_times": times,
+        "t_final": P5_DURATION,
+        "gamma": s.gamma,
+        "b_field_tesla": common::PUMPING_FIELD,
+        "cutoff_rad_per_s": s.cutoff,
+        "fields": fields,
+        "frame_terms": {"static": count(Fate::Static), "time_dependent": count(Fate::TimeDependent), "beyond_cutoff": count(Fate::BeyondCutoff), "counter_rotating": count(Fate::CounterRotating)},
+        "units": "rad/s, s, 1/s; hbar = 1",
+        "storage": "matrices row-major flat: M[i,j] = re[i*n+j] + 1j*im[i*n+j]",
+    })
+}
+
+fn p5_model_path() -> PathBuf {
+    reference_dir().join("p5_model.json")
+}
+
+/// Refuse to compare when the committed model is not the one the runtime builds now (a changed
+/// species table, frame or scenario): both sides must solve the identical problem.
+fn p5_check_model(fresh: &Value) {
+    let stale = "runtime/benches/reference/p5_model.json is stale or missing: run `cargo bench -p fieldbook-runtime --bench compare -- p5-dump`, then `python3 runtime/benches/reference/problems.py p5 --make-reference`";
+    let text = std::fs::read_to_string(p5_model_path()).expect(stale);
+    let committed: Value = serde_json::from_str(&text).expect(stale);
+    let (_, h_new) = common::cmat(&fresh["h"]);
+    let (_, h_old) = common::cmat(&committed["h"]);
+    let scale = h_new.iter().map(|z| z.norm()).fold(0.0, f64::max);
+    let same_h = h_new.len() == h_old.len()
+        && h_new
+            .iter()
+            .zip(&h_old)
+            .all(|(a, b)| (a - b).norm() <= 1e-12 * scale);
+    let rates = |v: &Value| -> Vec<(u64, u64, f64)> {
+        v["jumps"]
+            .as_array()
+            .expect(stale)
+            .iter()
+            .map(|j| {
+                (
+                    j["from"].as_u64().unwrap_or(0),
+                    j["to"].as_u64().unwrap_or(0),
+                    common::num(&j["rate"]),
+                )
+            })
+            .collect()
+    };
+    let (a, b) = (rates(fresh), rates(&committed));
+    let same_jumps = a.len() == b.len()
+        && a.iter()
+            .zip(&b)
+            .all(|(x, y)| x.0 == y.0 && x.1 == y.1 && (x.2 - y.2).abs() <= 1e-12 * x.2);
+    let same_rest = [
+        "rho0_diagonal",
+        "sample_times",
+        "stretched_index",
+        "sublevels",
+    ]
+    .iter()
+    .all(|k| fresh[*k] == committed[*k]);
+    assert!(same_h && same_jumps && same_rest, "{stale}");
+}
+
+/// The tight reference of P5 (`problems.py p5 --make-reference`): the stretched population at
+/// every sample and the final ρ.
+fn p5_reference() -> (Vec<f64>, Vec<C64>) {
+    let path = reference_dir().join("p5_reference.json");
+    let v: Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap_or_else(|e| {
+        panic!(
+            "{}: {e}; run problems.py p5 --make-reference",
+            path.display()
+        )
+    }))
+    .expect("p5 reference");
+    (
+        common::nums(&v["stretched_population"]),
+        common::cmat(&v["rho_final"]).1,
+    )
+}
+
+/// max over samples of |ΔP_stretched| and over the final ρ of |Δρ_ij|, as the reference reports.
+fn p5_error(sol: &Solution, reference: &(Vec<f64>, Vec<C64>)) -> f64 {
+    let pop = sol.series[0]
+        .values
+        .iter()
+        .zip(&reference.0)
+        .map(|(a, b)| (a - b).abs())
+        .fold(0.0, f64::max);
+    let rho = match &sol.final_state {
+        State::Mixed(r) => r
+            .iter()
+            .zip(&reference.1)
+            .map(|(a, b)| (a - b).norm())
+            .fold(0.0, f64::max),
+        State::Pure(_) => f64::NAN,
+    };
+    pop.max(rho)
+}
+
 /// Peak resident memory of this process (kB), from /proc (Linux).
 fn peak_rss_kb() -> Option<u64> {
     let s = std::fs::read_to_string("/proc/self/status").ok()?;
@@ -325,6 +492,15 @@ fn main() {
         .collect();
     if args.first().map(String::as_str) == Some("memory-child") {
         memory_child();
+        return;
+    }
+    if args.first().map(String::as_str) == Some("p5-dump") {
+        let (s, p, prepared) = p5_setup(Method::Auto);
+        let path = p5_model_path();
+        let mut text = serde_json::to_string(&p5_model_json(&s, &p, &prepared)).expect("json");
+        text.push('\n');
+        std::fs::write(&path, text).expect("write p5 model");
+        println!("wrote {}", path.display());
         return;
     }
     rayon::ThreadPoolBuilder::new()
@@ -447,6 +623,49 @@ fn main() {
             "max_error",
         );
         rows.push(row);
+    }
+    if want("p5") {
+        let reference = p5_reference();
+        // The same integrator on both sides; the exponential against scipy's on the whole
+        // Liouvillian (what a user writes); and against an expert's reduction to the block the
+        // conserved m selects, the reduction the runtime makes by itself.
+        for (method, python_method, name) in [
+            (
+                Method::DormandPrince853,
+                "ivp",
+                "P5 D2 pump dop853 / solve_ivp",
+            ),
+            (
+                Method::LiouvillianExp,
+                "expm",
+                "P5 D2 pump exp(𝓛t) / expm 576²",
+            ),
+            (
+                Method::LiouvillianExp,
+                "expm-block",
+                "P5 D2 pump exp(𝓛t) / expm block",
+            ),
+        ] {
+            let (s, p, prepared) = p5_setup(method);
+            p5_check_model(&p5_model_json(&s, &p, &prepared));
+            let (mut row, _) = compare(
+                name,
+                "p5",
+                &["--method", python_method],
+                f64::NAN,
+                || prepared.run().unwrap(),
+                |sol| p5_error(sol, &reference),
+                "max_error",
+            );
+            let diag = prepared.run().map(|s| s.diagnostics).ok();
+            row.note = format!(
+                "{} steps {}, one solve on 1 Rust thread; {}",
+                diag.as_ref().map_or("", |d| d.method.as_str()),
+                diag.as_ref().map_or(0, |d| d.steps),
+                row.note
+            );
+            rows.push(row);
+        }
     }
 
     println!(

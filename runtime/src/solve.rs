@@ -21,7 +21,9 @@ use crate::state::State;
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[non_exhaustive]
 pub enum Method {
-    /// Choose per segment: exact propagation where H is constant, Runge–Kutta elsewhere.
+    /// Choose per segment: exact propagation where H is constant (for an open atom the
+    /// Liouvillian exponential, when at most 144 entries of ρ can become non-zero), Runge–Kutta
+    /// elsewhere.
     Auto,
     /// Exact propagation of piecewise-constant Hamiltonians by Hermitian eigendecomposition
     /// (pure or closed mixed states).
@@ -455,7 +457,7 @@ impl Prepared {
                 continue;
             }
             let constant = self.ham.is_constant_on(a, b) && !tunes;
-            match self.segment_method(constant, false)? {
+            match self.segment_method(constant, false, false)? {
                 Method::Eigen => {
                     let hams = copies.get_or_insert_with(|| {
                         shifts
@@ -596,7 +598,8 @@ impl Prepared {
             }
             let samples = &self.samples[first..next];
             let constant = self.ham.is_constant_on(a, b);
-            let method = self.segment_method(constant, density)?;
+            let small = density && constant && self.exp_is_small(a, b, &y)?;
+            let method = self.segment_method(constant, density, small)?;
             stats.used(method);
             let mut on_sample =
                 |i: usize, _t: f64, state: &[C64]| rec.record(first + i, state, density);
@@ -641,12 +644,7 @@ impl Prepared {
                         ..cfg.clone()
                     };
                     let s = if density {
-                        let sys = LindbladSystem {
-                            ham: &self.ham,
-                            seg: self.ham.segment(a, b),
-                            diss: self.dissipator.as_ref(),
-                            h: RefCell::new(vec![C64::new(0.0, 0.0); n * n]),
-                        };
+                        let sys = LindbladSystem::new(&self.ham, a, b, self.dissipator.as_ref());
                         ode::integrate(scheme, &sys, a, b, &mut y, samples, &cfg, &mut on_sample)
                     } else {
                         ode::integrate(
@@ -722,8 +720,13 @@ impl Prepared {
         } else {
             "pure state"
         };
+        let exact = if density && self.dissipator.is_some() {
+            "the Liouvillian exponential on constant segments where at most 144 entries of ρ are reachable"
+        } else {
+            "exact propagation on constant segments"
+        };
         format!(
-            "auto: {kind}; exact propagation on constant segments, {} elsewhere",
+            "auto: {kind}; {exact}, {} elsewhere",
             self.adaptive_scheme().name()
         )
     }
@@ -736,12 +739,34 @@ impl Prepared {
         }
     }
 
-    fn segment_method(&self, constant: bool, density: bool) -> Result<Method, Error> {
+    /// Whether `Auto` should exponentiate the Liouvillian on the constant segment (a, b) of an
+    /// open system starting from `rho`: when the part of vec(ρ) it can reach
+    /// ([`lindblad::reachable`]) has at most [`AUTO_EXP_DIM`] entries.
+    fn exp_is_small(&self, a: f64, b: f64, rho: &[C64]) -> Result<bool, Error> {
+        let (Method::Auto, Some(d)) = (self.method, &self.dissipator) else {
+            return Ok(false);
+        };
+        let n = self.atom.n();
+        if n * n <= AUTO_EXP_DIM {
+            return Ok(true);
+        }
+        let mut h = vec![C64::new(0.0, 0.0); n * n];
+        self.ham.fill(0.5 * (a + b), &mut h);
+        Ok(lindblad::reachable(n, &h, d, rho)?.len() <= AUTO_EXP_DIM)
+    }
+
+    /// The method for one segment; `small_exp` is [`Prepared::exp_is_small`]'s verdict.
+    fn segment_method(
+        &self,
+        constant: bool,
+        density: bool,
+        small_exp: bool,
+    ) -> Result<Method, Error> {
         let open = self.dissipator.is_some();
         let m = match self.method {
             Method::Auto => match (constant, density, open) {
                 (true, false, _) | (true, true, false) => Method::Eigen,
-                (true, true, true) if self.atom.n() <= 12 => Method::LiouvillianExp,
+                (true, true, true) if small_exp => Method::LiouvillianExp,
                 _ => self.adaptive_scheme(),
             },
             Method::Eigen => {
@@ -806,6 +831,13 @@ impl ScanTable {
         &self.values
     }
 }
+
+/// Largest reachable part of vec(ρ) (entries) for which `Auto` exponentiates the Liouvillian of
+/// a constant segment rather than integrating it: 12², so every model of up to 12 levels
+/// qualifies, as before reachability was taken into account, and larger ones do when a
+/// conserved quantity confines ρ to a small block (the exponential then costs no more than a
+/// 12-level one, ~15 products of 144 × 144 matrices, whatever the segment's length).
+const AUTO_EXP_DIM: usize = 144;
 
 /// Points per parallel task of a scan: fixed, so results never depend on the thread count.
 const SCAN_CHUNK: usize = 64;
@@ -985,7 +1017,32 @@ struct LindbladSystem<'a> {
     ham: &'a Hamiltonian,
     seg: Segment,
     diss: Option<&'a Dissipator>,
-    h: RefCell<Vec<C64>>,
+    /// H(t) as a dense matrix, or (when the Hamiltonian is sparse enough) as its diagonal and
+    /// couplings.
+    h: RefCell<HamiltonianBuffer>,
+}
+
+/// Where [`LindbladSystem`] writes H(t) at each evaluation.
+enum HamiltonianBuffer {
+    Dense(Vec<C64>),
+    Sparse(Vec<f64>, Vec<lindblad::Coupling>),
+}
+
+impl<'a> LindbladSystem<'a> {
+    fn new(ham: &'a Hamiltonian, a: f64, b: f64, diss: Option<&'a Dissipator>) -> Self {
+        let n = ham.n();
+        let h = if ham.prefers_sparse() {
+            HamiltonianBuffer::Sparse(Vec::with_capacity(n), Vec::new())
+        } else {
+            HamiltonianBuffer::Dense(vec![C64::new(0.0, 0.0); n * n])
+        };
+        Self {
+            ham,
+            seg: ham.segment(a, b),
+            diss,
+            h: RefCell::new(h),
+        }
+    }
 }
 
 impl ode::System for LindbladSystem<'_> {
@@ -994,10 +1051,18 @@ impl ode::System for LindbladSystem<'_> {
     }
     fn rhs(&self, t: f64, rho: &[C64], drho: &mut [C64]) {
         let n = self.ham.n();
-        let mut h = self.h.borrow_mut();
-        self.ham.fill_in(Some(&self.seg), t, &mut h);
-        let ok = lindblad::commutator_hermitian(n, &h, rho, drho).is_ok()
-            && self.diss.is_none_or(|d| d.add_to(rho, drho).is_ok());
+        let commuted = match &mut *self.h.borrow_mut() {
+            HamiltonianBuffer::Dense(h) => {
+                self.ham.fill_in(Some(&self.seg), t, h);
+                lindblad::commutator_hermitian(n, h, rho, drho).is_ok()
+            }
+            HamiltonianBuffer::Sparse(diag, couplings) => {
+                self.ham.sparse_in(Some(&self.seg), t, diag, couplings);
+                lindblad::commutator_sparse_hermitian(n, diag, couplings, rho, drho);
+                true
+            }
+        };
+        let ok = commuted && self.diss.is_none_or(|d| d.add_to(rho, drho).is_ok());
         if !ok {
             // Sizes are fixed at construction, so this cannot happen; poison the step so the
             // integrator reports it rather than continuing silently.
@@ -1094,10 +1159,9 @@ fn liouvillian_exp(
     let n = ham.n();
     let mut h = vec![C64::new(0.0, 0.0); n * n];
     ham.fill(0.5 * (a + b), &mut h);
-    let l = lindblad::liouvillian(n, &h, d)?;
     let mut times: Vec<f64> = samples.iter().map(|t| (t - a).max(0.0)).collect();
     times.push(b - a);
-    let states = lindblad::propagate_constant(&l, rho, &times)?;
+    let states = lindblad::propagate_lindblad(n, &h, d, rho, &times)?;
     for (i, (&t, s)) in samples.iter().zip(&states).enumerate() {
         on(i, t, s);
     }

@@ -4,8 +4,9 @@
 Usage (called by the Rust bench harness):
 
     python3 problems.py PROBLEM [--repeat K] [--n N] [--dump] [--save FILE]
+                                [--method ivp|expm|expm-block] [--make-reference]
 
-PROBLEM is one of  p1, p1-expm, p2, p3, p4  (see README.md next to this file).
+PROBLEM is one of  p1, p1-expm, p2, p3, p4, p5  (see README.md next to this file).
 Exactly ONE JSON line is printed to stdout:
 
     {"problem": ..., "seconds": [...], "max_error": ..., "threads": ...,
@@ -390,13 +391,196 @@ def run_p4(args):
 
 
 # --------------------------------------------------------------------------
+# p5: optical pumping on the full 87Rb D2 hyperfine manifold (24 sublevels)
+# --------------------------------------------------------------------------
+P5_MODEL = HERE / "p5_model.json"
+P5_REFERENCE = HERE / "p5_reference.json"
+
+
+def p5_load(path=P5_MODEL):
+    """(model dict, H, jumps as arrays (from, to, rate), rho0, sample times) from the JSON
+    model the Rust bench writes (`cargo bench ... --bench compare -- p5-dump`)."""
+    with open(path) as fh:
+        m = json.load(fh)
+    n = m["n"]
+    h = (np.array(m["h"]["re"]) + 1j * np.array(m["h"]["im"])).reshape(n, n)
+    frm = np.array([j["from"] for j in m["jumps"]], dtype=int)
+    to = np.array([j["to"] for j in m["jumps"]], dtype=int)
+    rate = np.array([j["rate"] for j in m["jumps"]])
+    rho0 = np.diag(np.array(m["rho0_diagonal"], dtype=complex))
+    return m, h, (frm, to, rate), rho0, np.array(m["sample_times"])
+
+
+def p5_ivp(h, jumps, rho0, times, rtol=1e-8, atol=1e-10):
+    """rho at every sample time from solve_ivp(DOP853) on the flattened complex rho.
+
+    drho/dt = -i[H, rho] + sum_k (L_k rho L_k^+ - {L_k^+ L_k, rho}/2) with L_k = sqrt(r_k)|t_k><f_k|,
+    written out:  -i(M - M^+) with M = H rho (H and rho Hermitian),
+      - (g_i + g_j)/2 rho_ij  (g_i = total rate out of level i),
+      + delta_ij sum_k r_k [t_k = i] rho_{f_k f_k}  (the feeding matrix applied to diag rho).
+    """
+    n = h.shape[0]
+    frm, to, rate = jumps
+    out_rate = np.zeros(n)
+    np.add.at(out_rate, frm, rate)
+    damp = -0.5 * (out_rate[:, None] + out_rate[None, :])
+    feed = np.zeros((n, n))
+    np.add.at(feed, (to, frm), rate)
+    idx = np.arange(n)
+
+    def rhs(t, y):
+        rho = y.reshape(n, n)
+        m = h @ rho
+        d = -1j * (m - m.conj().T) + damp * rho
+        d[idx, idx] += feed @ rho[idx, idx]
+        return d.reshape(-1)
+
+    sol = solve_ivp(rhs, (0.0, times[-1]), rho0.reshape(-1), method="DOP853",
+                    rtol=rtol, atol=atol, t_eval=times)
+    if not sol.success:
+        raise RuntimeError(sol.message)
+    return sol.y.T.reshape(times.size, n, n), sol.nfev
+
+
+def p5_liouvillian(h, jumps):
+    """n^2 x n^2 Liouvillian on the row-major vec (vec(A rho B) = kron(A, B^T) vec rho).
+
+    The jumps |t><f| only damp (rho_ij at (g_i + g_j)/2) and feed rho_tt from rho_ff, so those
+    entries are written directly instead of summing one kron product per jump."""
+    n = h.shape[0]
+    frm, to, rate = jumps
+    eye = np.eye(n)
+    sup = -1j * (np.kron(h, eye) - np.kron(eye, h.T))
+    out_rate = np.zeros(n)
+    np.add.at(out_rate, frm, rate)
+    sup[np.diag_indices(n * n)] -= 0.5 * (out_rate[:, None] + out_rate[None, :]).reshape(-1)
+    np.add.at(sup, (to * (n + 1), frm * (n + 1)), rate)
+    return sup
+
+
+def p5_expm(h, jumps, rho0, times):
+    """rho at every sample time: one scipy.linalg.expm(L dt) for the uniform spacing dt, then
+    one matrix-vector product per sample (H is constant in the rotating frame)."""
+    n = h.shape[0]
+    dt = times[1] - times[0]
+    if not np.allclose(np.diff(times), dt, rtol=1e-12, atol=0.0):
+        raise ValueError("p5 sample times must be uniform")
+    prop = scipy.linalg.expm(p5_liouvillian(h, jumps) * dt)
+    out = np.empty((times.size, n * n), dtype=complex)
+    out[0] = rho0.reshape(-1)
+    for k in range(1, times.size):
+        out[k] = prop @ out[k - 1]
+    return out.reshape(times.size, n, n)
+
+
+def p5_expm_block(model, h, jumps, rho0, times):
+    """As p5_expm, on the block a conserved quantity selects. sigma+ light conserves
+    q = m (ground) or m - 1 (excited), and decay feeds populations from populations, so from a
+    diagonal rho0 only rho_ij with q_i = q_j can become non-zero: 102 of the 576 entries of
+    vec(rho).  The Liouvillian is written on those entries only (the row-major vec rule of
+    p5_liouvillian, entry by entry), exponentiated, and the result scattered back."""
+    n = h.shape[0]
+    q2 = np.array([s["two_m"] - 2 * s["excited"] for s in model["sublevels"]])
+    same = (q2[:, None] == q2[None, :]).reshape(-1)
+    if np.any(rho0.reshape(-1)[~same] != 0):
+        raise ValueError("rho0 leaves the q block")
+    idx = np.flatnonzero(same)
+    dt = times[1] - times[0]
+    if not np.allclose(np.diff(times), dt, rtol=1e-12, atol=0.0):
+        raise ValueError("p5 sample times must be uniform")
+    # rho_ij gets -i(H_ik delta_jl - delta_ik H_lj) rho_kl from the commutator, for the kept
+    # (i, j) and (k, l); then the damping and the feeding of populations, which all are kept.
+    i, j = np.divmod(idx, n)
+    block = -1j * (h[i[:, None], i[None, :]] * (j[:, None] == j[None, :])
+                   - (i[:, None] == i[None, :]) * h[j[None, :], j[:, None]])
+    frm, to, rate = jumps
+    out_rate = np.zeros(n)
+    np.add.at(out_rate, frm, rate)
+    block[np.diag_indices(idx.size)] -= 0.5 * (out_rate[i] + out_rate[j])
+    position = np.full(n * n, -1)
+    position[idx] = np.arange(idx.size)
+    np.add.at(block, (position[to * (n + 1)], position[frm * (n + 1)]), rate)
+    prop = scipy.linalg.expm(block * dt)
+    out = np.zeros((times.size, n * n), dtype=complex)
+    v = rho0.reshape(-1)[idx]
+    out[0, idx] = v
+    for k in range(1, times.size):
+        v = prop @ v
+        out[k, idx] = v
+    return out.reshape(times.size, n, n)
+
+
+def p5_make_reference(args):
+    """The tight reference, written to p5_reference.json: rho(t_k) = expm(L t_k) vec(rho0) for
+    each sample separately (no propagator reused), cross-checked against solve_ivp(DOP853) at
+    rtol 1e-12, atol 1e-14."""
+    m, h, jumps, rho0, times = p5_load()
+    sup = p5_liouvillian(h, jumps)
+    ref = np.array([(scipy.linalg.expm(sup * t) @ rho0.reshape(-1)).reshape(rho0.shape)
+                    for t in times])
+    tight, nfev = p5_ivp(h, jumps, rho0, times, rtol=1e-12, atol=1e-14)
+    k = m["stretched_index"]
+    payload = {
+        "model": str(P5_MODEL.name),
+        "sample_times": times.tolist(),
+        "stretched_population": ref[:, k, k].real.tolist(),
+        "rho_final": {"n": m["n"], "re": ref[-1].real.reshape(-1).tolist(),
+                      "im": ref[-1].imag.reshape(-1).tolist()},
+        "method": "scipy.linalg.expm(L * t_k) @ vec(rho0) for every sample time separately",
+        "cross_check": "solve_ivp DOP853 rtol 1e-12 atol 1e-14",
+        "cross_check_max_abs_diff": float(np.max(np.abs(tight - ref))),
+        "cross_check_nfev": int(nfev),
+        "storage": "matrices row-major flat: M[i,j] = re[i*n+j] + 1j*im[i*n+j]",
+        "numpy": np.__version__,
+        "scipy": scipy.__version__,
+        "python": platform.python_version(),
+    }
+    save_json(P5_REFERENCE, payload)
+    return {"problem": "p5", "seconds": [], "max_error": payload["cross_check_max_abs_diff"],
+            "written": str(P5_REFERENCE)}
+
+
+def p5_error(rho, k):
+    """max over samples of |delta P_stretched| and over the final rho of |delta rho_ij|."""
+    with open(P5_REFERENCE) as fh:
+        ref = json.load(fh)
+    pop = np.array(ref["stretched_population"])
+    final = (np.array(ref["rho_final"]["re"]) + 1j * np.array(ref["rho_final"]["im"]))
+    return float(max(np.max(np.abs(rho[:, k, k].real - pop)),
+                     np.max(np.abs(rho[-1].reshape(-1) - final))))
+
+
+def run_p5(args):
+    if args.make_reference:
+        return p5_make_reference(args)
+    m, h, jumps, rho0, times = p5_load()
+    k = m["stretched_index"]
+    out = {"problem": "p5", "method": args.method}
+    if args.method == "ivp":
+        seconds, (rho, nfev) = timed(lambda: p5_ivp(h, jumps, rho0, times), args.repeat)
+        out["nfev"] = int(nfev)
+    elif args.method == "expm":
+        seconds, rho = timed(lambda: p5_expm(h, jumps, rho0, times), args.repeat)
+    else:
+        seconds, rho = timed(lambda: p5_expm_block(m, h, jumps, rho0, times), args.repeat)
+    out.update({
+        "seconds": seconds,
+        "max_error": p5_error(rho, k),
+        "stretched_population": rho[:, k, k].real.tolist(),
+        "trace_final": float(np.trace(rho[-1]).real),
+    })
+    return out
+
+
+# --------------------------------------------------------------------------
 def save_json(path, payload):
     with open(path, "w") as fh:
         json.dump(payload, fh)
         fh.write("\n")
 
 
-RUNNERS = {"p1": run_p1, "p1-expm": run_p1_expm, "p2": run_p2, "p3": run_p3, "p4": run_p4}
+RUNNERS = {"p1": run_p1, "p1-expm": run_p1_expm, "p2": run_p2, "p3": run_p3, "p4": run_p4,
+           "p5": run_p5}
 
 
 def main(argv=None):
@@ -409,6 +593,11 @@ def main(argv=None):
                     help="p3: write the model to p3_model_N.json")
     ap.add_argument("--dump-dir", default=str(HERE),
                     help="directory for --dump (default: next to this script)")
+    ap.add_argument("--method", default="ivp", choices=["ivp", "expm", "expm-block"],
+                    help="p5: solve_ivp(DOP853) on rho, expm of the whole Liouvillian, or expm "
+                         "of its conserved-m block (default ivp)")
+    ap.add_argument("--make-reference", action="store_true",
+                    help="p5: write the tight reference p5_reference.json (untimed)")
     ap.add_argument("--save", default=None,
                     help="p1/p2/p4: also write the full output array to this JSON file")
     args = ap.parse_args(argv)

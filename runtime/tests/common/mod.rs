@@ -562,3 +562,131 @@ pub fn stirap_lambda(omega: f64, sigma: f64, t_pump: f64, t_stokes: f64, t_end: 
         vec![Observable::Population(r)],
     )
 }
+
+/// σ⁺ optical pumping on the whole ⁸⁷Rb D2 line (8 ground + 16 excited sublevels from the species
+/// table, expanded at 0.1 G along z): a pump on F = 2 → F' = 3 and a repumper on F = 1 → F' = 2,
+/// both σ⁺ and resonant with their stretched transitions, with spontaneous decay. Shared by
+/// `pumping.rs` and the bench's problem p5.
+pub struct Pumping {
+    /// The expanded atom with its sublevel labels.
+    pub line: fieldbook_runtime::manifold::LineAtom,
+    /// Pump (field 0) and repumper (field 1).
+    pub fields: Vec<Field>,
+    /// The rotating frame's cutoff (rad/s): 2π × 1 GHz keeps every coupling of a beam to its own
+    /// ground level and drops each beam's coupling to the other ground level, 6.8 GHz away
+    /// (`BeyondCutoff` in the frame report; their light shifts are ~(Ω/2)²/(2π × 6.6 GHz),
+    /// about 10⁻⁴ Γ).
+    pub cutoff: f64,
+    /// Natural linewidth Γ (1/s).
+    pub gamma: f64,
+    /// Pump Rabi frequency on |2, 2⟩ → |3', 3'⟩ (rad/s).
+    pub pump_rabi: f64,
+    /// |F = 2, m = 2⟩, the stretched ground state.
+    pub stretched: LevelId,
+    /// |F' = 3, m' = 3⟩, its cycling partner.
+    pub cycling: LevelId,
+}
+
+/// Bias field of the pumping scenario (T): 0.1 G, enough to name the quantisation axis, with
+/// Zeeman shifts (≲ 2π × 0.3 MHz) far below Γ = 2π × 6.07 MHz.
+pub const PUMPING_FIELD: f64 = 1e-5;
+
+/// The pumping scenario. The pump has Ω = Γ/√2 on the cycling transition, i.e. s = 2Ω²/Γ² = 1,
+/// the saturation intensity I_sat = 1.669 mW/cm² (Steck, *Rubidium 87 D Line Data*, σ± cycling
+/// value, recalled; `species.rs` checks the model against it); the repumper Ω = Γ/2 on
+/// |1, 1⟩ → |2', 2'⟩. `pi_admixture` ε adds a π component to the pump, polarisation
+/// ∝ e₊₁ + ε e₀, with the cycling Rabi frequency kept at Γ/√2.
+pub fn rb87_d2_pumping(pi_admixture: f64) -> Pumping {
+    use fieldbook_runtime::species::{DLine, Species};
+    let line = Species::named("87Rb")
+        .and_then(|s| s.line(DLine::D2).ok())
+        .expect("87Rb D2 in the species table");
+    let la = line
+        .expand(PUMPING_FIELD, |_| true, |_| true)
+        .expect("87Rb D2 expands");
+    let level = |excited, two_f, two_m| la.level(excited, two_f, two_m).expect("sublevel");
+    let transition = |lower, upper| {
+        la.atom
+            .transitions()
+            .iter()
+            .position(|t| t.lower() == lower && t.upper() == upper)
+            .expect("transition")
+    };
+    let (stretched, cycling) = (level(false, 4, 4), level(true, 6, 6));
+    let repump_tr = transition(level(false, 2, 2), level(true, 4, 4));
+    let cycling_tr = transition(stretched, cycling);
+    let gamma = line.gamma;
+    let pump_rabi = gamma / 2f64.sqrt();
+    let beam = |name: &str, tr, rabi, pol| {
+        Field::new(
+            name,
+            Carrier::Detuning {
+                transition: tr,
+                detuning: 0.0,
+            },
+            Strength::Rabi {
+                transition: tr,
+                rabi,
+            },
+        )
+        .with_polarization(pol)
+    };
+    let z = C64::new(0.0, 0.0);
+    let pump_pol = Polarization::new([z, C64::new(pi_admixture, 0.0), C64::new(1.0, 0.0)])
+        .expect("pump polarisation");
+    Pumping {
+        fields: vec![
+            beam("pump", cycling_tr, pump_rabi, pump_pol),
+            beam("repump", repump_tr, 0.5 * gamma, Polarization::sigma_plus()),
+        ],
+        line: la,
+        cutoff: TAU * 1e9,
+        gamma,
+        pump_rabi,
+        stretched,
+        cycling,
+    }
+}
+
+impl Pumping {
+    /// Both beams on from 0 to `t_end` (s), from the uniform mixture of the 8 ground sublevels,
+    /// recording `observables`.
+    pub fn problem(&self, t_end: f64, observables: Vec<Observable>) -> Problem {
+        let atom = &self.line.atom;
+        let on = || Envelope::new(Shape::Square, t_end).expect("square envelope");
+        let seq = Sequence::builder()
+            .at(0.0, Pulse::new(0, on()))
+            .at(0.0, Pulse::new(1, on()))
+            .build()
+            .expect("sequence");
+        let ground: Vec<(LevelId, f64)> = self
+            .line
+            .labels
+            .iter()
+            .enumerate()
+            .filter(|(_, l)| !l.excited)
+            .map(|(k, _)| (k, 1.0))
+            .collect();
+        let mut p = Problem::new(
+            atom.clone(),
+            self.fields.clone(),
+            seq,
+            State::mixture(atom, &ground).expect("ground mixture"),
+            observables,
+        );
+        p.frame = Frame::Rotating {
+            cutoff: self.cutoff,
+        };
+        p
+    }
+
+    /// The continuous-wave steady state of the same beams.
+    pub fn steady(&self, observables: Vec<Observable>) -> SteadyProblem {
+        SteadyProblem {
+            atom: self.line.atom.clone(),
+            fields: self.fields.clone(),
+            cutoff: self.cutoff,
+            observables,
+        }
+    }
+}
