@@ -349,6 +349,8 @@ fn large_record() -> Record {
             shown: "0.5000".into(),
             expected: "near 1 within 1e-6".into(),
             passed: false,
+            bounds: None,
+            selection: None,
         }],
         inline: vec![],
         warnings: vec![],
