@@ -6,6 +6,7 @@ use std::fmt::Write as _;
 
 use plotters::coord::ranged1d::ValueFormatter;
 use plotters::coord::types::RangedCoordf64;
+use plotters::element::DashedPathElement;
 use plotters::prelude::*;
 
 use super::units::{Scale, axis_title, scale_for, tick};
@@ -112,7 +113,7 @@ fn thin(points: Vec<(f64, f64)>) -> Vec<(f64, f64)> {
 
 /// The y scale and title of a plot's curves: scaled by the first curve's unit when all share its
 /// dimension, else in SI.
-fn y_axis(curves: &[Column]) -> (Scale, String) {
+fn y_axis(curves: &[&Column]) -> (Scale, String) {
     let Some(first) = curves.first() else {
         return (scale_for([0; 5], &[]), String::new());
     };
@@ -129,7 +130,8 @@ fn y_axis(curves: &[Column]) -> (Scale, String) {
         .flat_map(|c| c.values.iter().copied())
         .collect();
     let s = scale_for(first.dim, &all);
-    let label = if curves.len() == 1 {
+    let one_quantity = curves.iter().all(|c| c.label == first.label);
+    let label = if one_quantity {
         first.label.as_str()
     } else {
         "value"
@@ -138,40 +140,150 @@ fn y_axis(curves: &[Column]) -> (Scale, String) {
     (s, title)
 }
 
-/// A line plot of `curves` over `x`, with a legend when there are several.
+/// One line of a plot: values of `y` over `x` (SI), named in the legend.
+pub(crate) struct Trace<'a> {
+    /// Horizontal values.
+    pub x: &'a Column,
+    /// Vertical values, as many as `x`.
+    pub y: &'a Column,
+    /// The legend entry.
+    pub name: String,
+    /// Index into the palette.
+    pub colour: usize,
+    /// Drawn dashed and lighter: the earlier version in a diff.
+    pub old: bool,
+}
+
+/// Where a check sits on a line plot.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub(crate) enum Place {
+    /// A value of a curve at this x (SI): a bar over the accepted y range at x.
+    At(f64),
+    /// The curve's maximum or minimum: a horizontal band over the accepted y range.
+    Level,
+    /// The x of the curve's maximum or minimum: a vertical band over the accepted x range.
+    Position,
+}
+
+/// A check drawn on a line plot: the accepted range on the axis its [`Place`] names (SI,
+/// `None` for an open side) and the value aimed at.
+#[derive(Clone, Debug, PartialEq)]
+pub(crate) struct Mark {
+    /// Its number in the figure's caption.
+    pub number: usize,
+    /// Where it sits.
+    pub place: Place,
+    /// Lower end of the accepted range.
+    pub lo: Option<f64>,
+    /// Upper end of the accepted range.
+    pub hi: Option<f64>,
+    /// The value aimed at.
+    pub near: Option<f64>,
+    /// Whether the check held.
+    pub passed: bool,
+}
+
+/// Mark colours: the style sheet's held green and failed red.
+const HELD: RGBColor = RGBColor(0x2e, 0x6b, 0x3a);
+const FAILED: RGBColor = RGBColor(0x9c, 0x2f, 0x1e);
+
+/// A line plot of `curves` over `x`, with a legend when there are several and `marks` on top.
 pub(crate) fn curves(
     title: &str,
     x: &Column,
     curves: &[Column],
     log_x: bool,
     log_y: bool,
+    marks: &[Mark],
 ) -> Result<String, PlotError> {
-    if let Some(c) = curves.iter().find(|c| c.values.len() != x.values.len()) {
+    let traces: Vec<Trace> = curves
+        .iter()
+        .enumerate()
+        .map(|(i, c)| Trace {
+            x,
+            y: c,
+            name: c.label.clone(),
+            colour: i,
+            old: false,
+        })
+        .collect();
+    line_plot(title, &x.label, &traces, log_x, log_y, marks)
+}
+
+/// A line plot of `traces`, whose x columns share a dimension and whose axis is titled with
+/// `x_label`.
+pub(crate) fn line_plot(
+    title: &str,
+    x_label: &str,
+    traces: &[Trace<'_>],
+    log_x: bool,
+    log_y: bool,
+    marks: &[Mark],
+) -> Result<String, PlotError> {
+    if let Some(t) = traces.iter().find(|t| t.y.values.len() != t.x.values.len()) {
         return Err(PlotError::Shape(format!(
             "curve `{}` has {} values for {} x values",
-            c.label,
-            c.values.len(),
-            x.values.len()
+            t.y.label,
+            t.y.values.len(),
+            t.x.values.len()
         )));
     }
-    let sx = scale_for(x.dim, &x.values);
-    let (sy, y_title) = y_axis(curves);
-    let keep = |v: f64, log: bool| v.is_finite() && (!log || v > 0.0);
-    let series: Vec<Vec<(f64, f64)>> = curves
+    let all_x: Vec<f64> = traces
         .iter()
-        .map(|c| {
+        .flat_map(|t| t.x.values.iter().copied())
+        .collect();
+    let sx = scale_for(traces.first().map_or([0; 5], |t| t.x.dim), &all_x);
+    let (sy, y_title) = y_axis(&traces.iter().map(|t| t.y).collect::<Vec<_>>());
+    let keep = |v: f64, log: bool| v.is_finite() && (!log || v > 0.0);
+    let series: Vec<Vec<(f64, f64)>> = traces
+        .iter()
+        .map(|t| {
             thin(
-                x.values
+                t.x.values
                     .iter()
-                    .zip(&c.values)
+                    .zip(&t.y.values)
                     .map(|(a, b)| (a * sx.factor, b * sy.factor))
                     .filter(|(a, b)| keep(*a, log_x) && keep(*b, log_y))
                     .collect(),
             )
         })
         .collect();
-    let (x0, x1) = range(series.iter().flatten().map(|p| p.0), log_x);
-    let (y0, y1) = range(series.iter().flatten().map(|p| p.1), log_y);
+    // Marks in the plot's units; the axes widen to show what each aims at (or its bounds).
+    let marks: Vec<Mark> = marks
+        .iter()
+        .map(|m| {
+            let f = if m.place == Place::Position {
+                sx.factor
+            } else {
+                sy.factor
+            };
+            Mark {
+                place: match m.place {
+                    Place::At(x) => Place::At(x * sx.factor),
+                    other => other,
+                },
+                lo: m.lo.map(|v| v * f),
+                hi: m.hi.map(|v| v * f),
+                near: m.near.map(|v| v * f),
+                ..m.clone()
+            }
+        })
+        .collect();
+    let aims = |m: &Mark| match m.near {
+        Some(n) => vec![n],
+        None => m.lo.into_iter().chain(m.hi).collect(),
+    };
+    let mark_x = marks.iter().flat_map(|m| match m.place {
+        Place::At(x) => vec![x],
+        Place::Position => aims(m),
+        Place::Level => vec![],
+    });
+    let mark_y = marks
+        .iter()
+        .filter(|m| m.place != Place::Position)
+        .flat_map(aims);
+    let (x0, x1) = range(series.iter().flatten().map(|p| p.0).chain(mark_x), log_x);
+    let (y0, y1) = range(series.iter().flatten().map(|p| p.1).chain(mark_y), log_y);
     // A little room above and below so curves do not run along the frame.
     let (y0, y1) = if log_y {
         (y0, y1)
@@ -179,13 +291,14 @@ pub(crate) fn curves(
         let pad = (y1 - y0) * 0.04;
         (y0 - pad, y1 + pad)
     };
-    let names: Vec<&str> = curves.iter().map(|c| c.label.as_str()).collect();
     let frame = Frame {
-        x_title: axis_title(&x.label, &sx),
+        x_title: axis_title(x_label, &sx),
         y_title,
-        legend: curves.len() > 1,
+        legend: traces.len() > 1,
+        log: (log_x, log_y),
     };
     let mut svg = String::new();
+    let overlay;
     {
         let root = SVGBackend::with_string(&mut svg, (WIDTH, HEIGHT)).into_drawing_area();
         let mut builder = ChartBuilder::on(&root);
@@ -194,34 +307,38 @@ pub(crate) fn curves(
             .margin(12)
             .x_label_area_size(44)
             .y_label_area_size(64);
-        match (log_x, log_y) {
+        overlay = match (log_x, log_y) {
             (false, false) => {
                 let c = builder
                     .build_cartesian_2d(x0..x1, y0..y1)
                     .map_err(draw_err)?;
-                lines(c, &frame, &series, &names)?;
+                lines(c, &frame, &series, traces, &marks)?
             }
             (true, false) => {
                 let c = builder
                     .build_cartesian_2d((x0..x1).log_scale(), y0..y1)
                     .map_err(draw_err)?;
-                lines(c, &frame, &series, &names)?;
+                lines(c, &frame, &series, traces, &marks)?
             }
             (false, true) => {
                 let c = builder
                     .build_cartesian_2d(x0..x1, (y0..y1).log_scale())
                     .map_err(draw_err)?;
-                lines(c, &frame, &series, &names)?;
+                lines(c, &frame, &series, traces, &marks)?
             }
             (true, true) => {
                 let c = builder
                     .build_cartesian_2d((x0..x1).log_scale(), (y0..y1).log_scale())
                     .map_err(draw_err)?;
-                lines(c, &frame, &series, &names)?;
+                lines(c, &frame, &series, traces, &marks)?
             }
-        }
+        };
         root.present().map_err(draw_err)?;
     }
+    let at = svg
+        .rfind("</svg>")
+        .ok_or_else(|| PlotError::Draw("the backend wrote no </svg>".into()))?;
+    svg.insert_str(at, &overlay);
     Ok(inline(svg))
 }
 
@@ -231,20 +348,29 @@ fn inline(svg: String) -> String {
     svg.replacen(" xmlns=\"http://www.w3.org/2000/svg\"", "", 1)
 }
 
-/// Titles of a figure's axes.
+/// Titles of a figure's axes, whether it has a legend, and which axes are logarithmic.
 struct Frame {
     x_title: String,
     y_title: String,
     legend: bool,
+    log: (bool, bool),
 }
 
-/// Axes, curves and legend on a built chart, for any pair of linear or logarithmic axes.
+/// `colour` mixed halfway to white: the lighter tone of an earlier version's curve.
+fn lighter(colour: RGBColor) -> RGBColor {
+    let mix = |c: u8| ((u16::from(c) + 255) / 2) as u8;
+    RGBColor(mix(colour.0), mix(colour.1), mix(colour.2))
+}
+
+/// Axes, curves and legend on a built chart, for any pair of linear or logarithmic axes;
+/// returns the SVG of the marks, drawn by hand since they need transparency and text.
 fn lines<'a, X, Y>(
     mut chart: ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
     frame: &Frame,
     series: &[Vec<(f64, f64)>],
-    names: &[&str],
-) -> Result<(), PlotError>
+    traces: &[Trace<'_>],
+    marks: &[Mark],
+) -> Result<String, PlotError>
 where
     X: Ranged<ValueType = f64> + ValueFormatter<f64>,
     Y: Ranged<ValueType = f64> + ValueFormatter<f64>,
@@ -261,14 +387,29 @@ where
         .light_line_style(RGBColor(0xf3, 0xf1, 0xea))
         .draw()
         .map_err(draw_err)?;
-    for (i, (points, name)) in series.iter().zip(names).enumerate() {
-        let colour = PALETTE[i % PALETTE.len()];
-        let style = ShapeStyle::from(&colour).stroke_width(2);
-        chart
-            .draw_series(LineSeries::new(points.iter().copied(), style))
-            .map_err(draw_err)?
-            .label(*name)
-            .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+    // Earlier versions first, so that the current curves lie on top.
+    let mut order: Vec<usize> = (0..traces.len()).collect();
+    order.sort_by_key(|&i| !traces[i].old);
+    for i in order {
+        let (points, trace) = (&series[i], &traces[i]);
+        let base = PALETTE[trace.colour % PALETTE.len()];
+        if trace.old {
+            let style = ShapeStyle::from(&lighter(base)).stroke_width(2);
+            chart
+                .draw_series(DashedLineSeries::new(points.iter().copied(), 7, 5, style))
+                .map_err(draw_err)?
+                .label(trace.name.as_str())
+                .legend(move |(x, y)| {
+                    DashedPathElement::new(vec![(x, y), (x + 18, y)], 5, 3, style)
+                });
+        } else {
+            let style = ShapeStyle::from(&base).stroke_width(2);
+            chart
+                .draw_series(LineSeries::new(points.iter().copied(), style))
+                .map_err(draw_err)?
+                .label(trace.name.as_str())
+                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+        }
     }
     if frame.legend {
         chart
@@ -280,7 +421,136 @@ where
             .draw()
             .map_err(draw_err)?;
     }
-    Ok(())
+    Ok(marks_svg(&chart, frame.log, marks))
+}
+
+/// The checks drawn on a chart: a bar with end caps at a point, a band across the plot for an
+/// extremum's value or position, a diamond where a `near` check aims, and the check's number.
+/// Ranges are clipped to the plotting area; an open side runs to its edge.
+fn marks_svg<'a, X, Y>(
+    chart: &ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
+    (log_x, log_y): (bool, bool),
+    marks: &[Mark],
+) -> String
+where
+    X: Ranged<ValueType = f64> + ValueFormatter<f64>,
+    Y: Ranged<ValueType = f64> + ValueFormatter<f64>,
+{
+    if marks.is_empty() {
+        return String::new();
+    }
+    let (px, py) = chart.plotting_area().get_pixel_range();
+    let (ax, ay) = (chart.x_range().start, chart.y_range().start);
+    let usable = |v: f64, log: bool| v.is_finite() && (!log || v > 0.0);
+    // Pixel of a value on either axis, or `open` when it is missing or off a log axis.
+    let px_x = |v: Option<f64>, open: i32| match v {
+        Some(v) if usable(v, log_x) => chart.backend_coord(&(v, ay)).0.clamp(px.start, px.end),
+        _ => open,
+    };
+    let px_y = |v: Option<f64>, open: i32| match v {
+        Some(v) if usable(v, log_y) => chart.backend_coord(&(ax, v)).1.clamp(py.start, py.end),
+        _ => open,
+    };
+    let mut out =
+        String::from("<g class=\"fb-marks\" font-family=\"sans-serif\" font-size=\"11\">");
+    for m in marks {
+        let c = if m.passed { HELD } else { FAILED };
+        let colour = format!("#{:02x}{:02x}{:02x}", c.0, c.1, c.2);
+        let diamond = |out: &mut String, (x, y): (i32, i32)| {
+            let _ = write!(
+                out,
+                "<path d=\"M{x} {}l5 5l-5 5l-5 -5z\" fill=\"#fff\" stroke=\"{colour}\" stroke-width=\"2\"/>",
+                y - 5
+            );
+        };
+        let (label_at, aim) = match m.place {
+            Place::At(x) => {
+                let x = px_x(Some(x), px.start);
+                let (top, bottom) = (px_y(m.hi, py.start), px_y(m.lo, py.end));
+                let _ = write!(
+                    out,
+                    "<path d=\"M{x} {top}V{bottom}\" stroke=\"{colour}\" stroke-width=\"2\"/>"
+                );
+                for (end, y) in [(m.hi, top), (m.lo, bottom)]
+                    .into_iter()
+                    .take(ends(top, bottom))
+                {
+                    if end.is_some() {
+                        let _ = write!(
+                            out,
+                            "<path d=\"M{} {y}h12\" stroke=\"{colour}\" stroke-width=\"2\"/>",
+                            x - 6
+                        );
+                    }
+                }
+                let aim = m.near.map(|n| (x, px_y(Some(n), (top + bottom) / 2)));
+                ((x + 8, aim.map_or(top, |a| a.1) - 6), aim)
+            }
+            Place::Level => {
+                let (top, bottom) = (px_y(m.hi, py.start), px_y(m.lo, py.end));
+                band(&mut out, &colour, (px.start, px.end), (top, bottom));
+                for (end, y) in [(m.hi, top), (m.lo, bottom)]
+                    .into_iter()
+                    .take(ends(top, bottom))
+                {
+                    if end.is_some() {
+                        line(&mut out, &colour, (px.start, y), (px.end, y));
+                    }
+                }
+                ((px.start + 6, top.min(bottom) - 4), None)
+            }
+            Place::Position => {
+                let (left, right) = (px_x(m.lo, px.start), px_x(m.hi, px.end));
+                band(&mut out, &colour, (left, right), (py.start, py.end));
+                for (end, x) in [(m.lo, left), (m.hi, right)]
+                    .into_iter()
+                    .take(ends(left, right))
+                {
+                    if end.is_some() {
+                        line(&mut out, &colour, (x, py.start), (x, py.end));
+                    }
+                }
+                ((right.max(left) + 4, py.start + 14), None)
+            }
+        };
+        if let Some(a) = aim {
+            diamond(&mut out, a);
+        }
+        let _ = write!(
+            out,
+            "<text x=\"{}\" y=\"{}\" fill=\"{colour}\" font-weight=\"bold\">{}</text>",
+            label_at.0, label_at.1, m.number
+        );
+    }
+    out.push_str("</g>");
+    out
+}
+
+/// How many ends of a range to draw: one when both fall on the same pixel.
+fn ends(a: i32, b: i32) -> usize {
+    if a == b { 1 } else { 2 }
+}
+
+/// A translucent rectangle between pixel columns `xs` and rows `ys`; nothing when it is empty.
+fn band(out: &mut String, colour: &str, xs: (i32, i32), ys: (i32, i32)) {
+    let (x, w) = (xs.0.min(xs.1), (xs.1 - xs.0).abs());
+    let (y, h) = (ys.0.min(ys.1), (ys.1 - ys.0).abs());
+    if w == 0 || h == 0 {
+        return;
+    }
+    let _ = write!(
+        out,
+        "<rect x=\"{x}\" y=\"{y}\" width=\"{w}\" height=\"{h}\" fill=\"{colour}\" fill-opacity=\"0.12\"/>"
+    );
+}
+
+/// A thin dashed line between two pixels: the edge of an accepted range.
+fn line(out: &mut String, colour: &str, a: (i32, i32), b: (i32, i32)) {
+    let _ = write!(
+        out,
+        "<path d=\"M{} {}L{} {}\" stroke=\"{colour}\" stroke-dasharray=\"4 3\"/>",
+        a.0, a.1, b.0, b.1
+    );
 }
 
 /// Cell edges of an axis: midpoints between neighbours, extended by half a step at the ends.
@@ -498,7 +768,7 @@ mod tests {
             [0; 5],
             (0..50).map(|i| (i as f64 * 0.1).cos()).collect(),
         );
-        let svg = curves("t", &x, &[a, b], false, false).expect("drawn");
+        let svg = curves("t", &x, &[a, b], false, false, &[]).expect("drawn");
         assert!(svg.contains("width=\"720\"") && svg.contains("height=\"420\""));
         assert!(svg.contains("time (µs)"), "{svg}");
         assert!(svg.contains("p(g)"));
@@ -508,7 +778,94 @@ mod tests {
     fn log_axes_skip_non_positive_values() {
         let x = col("rabi", [-1, 0, 0, 0, 0], vec![0.0, 1e3, 1e4, 1e5]);
         let y = col("rate", [-1, 0, 0, 0, 0], vec![-1.0, 1.0, 10.0, 100.0]);
-        assert!(curves("l", &x, &[y], true, true).is_ok());
+        assert!(curves("l", &x, std::slice::from_ref(&y), true, true, &[]).is_ok());
+        // A mark whose range is open or non-positive on a log axis is clipped, not lost.
+        let m = Mark {
+            number: 1,
+            place: Place::At(1e4),
+            lo: Some(-1.0),
+            hi: None,
+            near: None,
+            passed: true,
+        };
+        let svg = curves("l", &x, &[y], true, true, &[m]).unwrap();
+        assert!(svg.contains("class=\"fb-marks\""), "{svg}");
+    }
+
+    #[test]
+    fn checks_are_drawn_where_they_aim_and_widen_the_axes() {
+        let x = col("d", [-1, 0, 0, 0, 0], (0..11).map(|i| i as f64).collect());
+        let y = col("p", [0; 5], (0..11).map(|i| 0.1 * i as f64).collect());
+        let aim = |place, lo, hi, near, passed| Mark {
+            number: 1,
+            place,
+            lo,
+            hi,
+            near,
+            passed,
+        };
+        let marks = [
+            aim(Place::At(5.0), Some(0.4), Some(0.6), Some(0.5), true),
+            // Far above the curve: the y axis must reach it.
+            aim(Place::Level, None, Some(3.0), None, false),
+            aim(Place::Position, Some(9.0), Some(10.0), None, true),
+        ];
+        let svg = curves("c", &x, std::slice::from_ref(&y), false, false, &marks).unwrap();
+        let g = &svg[svg.find("<g class=\"fb-marks\"").expect("marks")..];
+        assert_eq!(g.matches("<text").count(), 3);
+        assert_eq!(g.matches("<rect").count(), 2, "two bands");
+        assert!(
+            g.contains("#9c2f1e") && g.contains("#2e6b3a"),
+            "failed and held colours"
+        );
+        assert_eq!(g.matches("l5 5l-5 5l-5 -5z").count(), 1, "one aim");
+        // The y ticks now run past 3 (the level), though the curve stops at 1.
+        let plain = curves("c", &x, std::slice::from_ref(&y), false, false, &[]).unwrap();
+        let tick_3 = "\n3\n</text>";
+        assert!(!plain.contains(tick_3) && svg.contains(tick_3), "{svg}");
+    }
+
+    #[test]
+    fn an_earlier_version_is_dashed_and_lighter() {
+        let x = col(
+            "t",
+            [1, 0, 0, 0, 0],
+            (0..20).map(|i| i as f64 * 1e-6).collect(),
+        );
+        let a = col(
+            "p",
+            [0; 5],
+            (0..20).map(|i| (i as f64 * 0.3).sin()).collect(),
+        );
+        let b = col(
+            "p",
+            [0; 5],
+            (0..20).map(|i| (i as f64 * 0.3).cos()).collect(),
+        );
+        let trace = |y, old| Trace {
+            x: &x,
+            y,
+            name: if old { "p · old" } else { "p · new" }.into(),
+            colour: 0,
+            old,
+        };
+        let svg = line_plot(
+            "o",
+            "t",
+            &[trace(&a, true), trace(&b, false)],
+            false,
+            false,
+            &[],
+        )
+        .unwrap();
+        assert!(svg.contains("p · old") && svg.contains("p · new"));
+        // The lighter tone of the first palette colour, and the full one.
+        let old = lighter(PALETTE[0]);
+        assert!(
+            svg.contains(&format!("#{:02X}{:02X}{:02X}", old.0, old.1, old.2)),
+            "{svg}"
+        );
+        assert!(svg.contains("#27476E"), "{svg}");
     }
 
     #[test]
