@@ -12,6 +12,7 @@ use fieldbook::kernel::cache::Cache;
 use fieldbook::kernel::session::{self, RunOptions};
 use fieldbook::notebook::{self, diag::Severity};
 use fieldbook::record;
+use fieldbook::render;
 use fieldbook::summary;
 
 /// `println!` that ignores a closed stdout (e.g. `fieldbook diff a b | head`) instead of
@@ -41,15 +42,19 @@ const USAGE: &str =
     "usage: fieldbook check FILE…                  validate run-files without simulating
        fieldbook run FILE… [OPTIONS]          run them and print results and checks
        fieldbook rerun RECORD… [OPTIONS]      re-run a record's source (writes to --out, default .)
-       fieldbook diff A B [--rtol R] [--atol A]   compare two records; exit 1 when they differ
+       fieldbook diff A B [--rtol R] [--atol A] [--html OUT]
+                                              compare two records (or reports); exit 1 when
+                                              they differ; --html also writes a diff page
 options of run and check:
        --set NAME=EXPR      override a parameter (repeatable), e.g. --set rabi=\"2π × 300 kHz\"
 options of run:
        --no-cache           recompute every evolve block
        --cache DIR          keep cached results in DIR (default: .fieldbook-cache beside each file)
        --out DIR            write DIR/NAME.record.json and the report DIR/NAME.html (atomically)
-       --templates DIR      take report.html and style.css from DIR where present
-       --force              replace a record of a different input in --out
+       --templates DIR      take report.html, diff.html and style.css from DIR where present
+                            (also for diff --html)
+       --force              replace a record of a different input in --out, or a file at the
+                            path of diff --html that is not a diff page
        --csv                with --out: also write every plotted or tabulated series as CSV
        fieldbook --version";
 
@@ -63,6 +68,7 @@ struct Args {
     force: bool,
     csv: bool,
     tolerance: record::diff::Tolerance,
+    html: Option<PathBuf>,
 }
 
 fn parse_args(args: Vec<String>) -> Result<Args, String> {
@@ -78,6 +84,7 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
         force: false,
         csv: false,
         tolerance: record::diff::Tolerance::default(),
+        html: None,
     };
     while let Some(a) = it.next() {
         if let Some(rest) = a.strip_prefix("--set") {
@@ -109,6 +116,8 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
             } else {
                 out.tolerance.atol = x;
             }
+        } else if a == "--html" {
+            out.html = Some(it.next().ok_or("--html needs a file name")?.into());
         } else if a == "--force" {
             out.force = true;
         } else if a == "--csv" {
@@ -123,6 +132,9 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
     }
     if out.files.is_empty() {
         return Err(format!("`{}` needs at least one run-file", out.command));
+    }
+    if out.html.is_some() && out.command != "diff" {
+        return Err("--html is an option of `diff`".into());
     }
     Ok(out)
 }
@@ -240,11 +252,47 @@ fn diff(args: &Args) -> u8 {
         return INPUT_ERROR;
     };
     let changes = record::diff::diff(&ra, &rb, args.tolerance);
-    say_raw!(
-        "{}",
-        record::diff::summary(&a.display().to_string(), &b.display().to_string(), &changes)
-    );
+    let (a_name, b_name) = (a.display().to_string(), b.display().to_string());
+    say_raw!("{}", record::diff::summary(&a_name, &b_name, &changes));
+    if let Some(out) = &args.html {
+        let old = render::diff::Side {
+            record: &ra,
+            path: &a_name,
+        };
+        let new = render::diff::Side {
+            record: &rb,
+            path: &b_name,
+        };
+        let page = render::diff::page(
+            &old,
+            &new,
+            &changes,
+            args.tolerance,
+            args.templates.as_deref(),
+        )
+        .map_err(|e| e.to_string());
+        match page.and_then(|p| write_page(out, &p, render::PageKind::Diff, args.force)) {
+            Ok(()) => say!("diff page: {}", out.display()),
+            Err(e) => {
+                eprintln!("error: diff page {}: {e}", out.display());
+                return INPUT_ERROR;
+            }
+        }
+    }
     if changes.is_empty() { OK } else { CHECK_FAILED }
+}
+
+/// Writes a diff or index page atomically, unless `path` holds something else (a record, a
+/// report, a page of the user's own) and `force` is not given.
+fn write_page(path: &Path, page: &str, kind: render::PageKind, force: bool) -> Result<(), String> {
+    let ours = kind.may_replace(path).map_err(|e| e.to_string())?;
+    if !ours && !force {
+        return Err(format!(
+            "{} exists and is not a page Fieldbook wrote there; pass --force to replace it, or choose another name",
+            path.display()
+        ));
+    }
+    record::io::write_atomic(path, page.as_bytes()).map_err(|e| e.to_string())
 }
 
 /// Check (and, for `run` and `rerun`, execute) one run-file's text.

@@ -2,6 +2,7 @@
 //! one path. The page is self-contained: style inlined, figures as inline SVG, math as MathML,
 //! no script but the embedded record (JSON, read back by [`extract_record`]), nothing fetched.
 
+pub mod diff;
 mod plot;
 mod prose;
 mod units;
@@ -54,6 +55,35 @@ pub enum RenderError {
     /// The embedded record is not one this build reads.
     #[error("the embedded record cannot be read: {0}")]
     BadRecord(String),
+}
+
+/// The pages written beside records that a later run may replace without asking: each ends
+/// with its kind's mark, and any other file at their path is left alone unless forced.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum PageKind {
+    /// A diff page (`fieldbook diff --html`).
+    Diff,
+}
+
+impl PageKind {
+    /// The comment that ends every page of this kind.
+    fn mark(self) -> &'static str {
+        match self {
+            PageKind::Diff => "\n<!-- fieldbook diff page -->\n",
+        }
+    }
+
+    /// Whether a page of this kind may be written to `path`: nothing is there, or a page of
+    /// the same kind.
+    pub fn may_replace(self, path: &Path) -> std::io::Result<bool> {
+        match std::fs::read(path) {
+            Ok(bytes) => Ok(bytes
+                .trim_ascii_end()
+                .ends_with(self.mark().trim().as_bytes())),
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(true),
+            Err(e) => Err(e),
+        }
+    }
 }
 
 /// Text or attribute value made safe for HTML.
@@ -471,7 +501,7 @@ fn block(out: &mut String, record: &Record, cell: &CellRecord) -> Result<(), Ren
             );
         }
         Some(CellOutput::Map { title, x, y, z }) => {
-            let svg = figure(plot::heat_map(title, x, y, z))?;
+            let svg = figure(plot::heat_map(title, x, y, z, plot::MapStyle::default()))?;
             let _ = write!(out, "<figure class=\"fb-figure fb-map\">{svg}</figure>");
         }
         Some(CellOutput::Table { title, columns }) => table(out, title.as_deref(), columns),

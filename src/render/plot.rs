@@ -41,9 +41,25 @@ const STOPS: [(u8, u8, u8); 5] = [
     (0x7a, 0x3c, 0x62),
     (0x21, 0x1d, 0x40),
 ];
+/// Colour stops of a difference map, from negative through zero to positive: deep slate, sky,
+/// paper, clay, deep brick; zero is the paper colour, and the two sides differ in hue as well
+/// as in lightness.
+const DIVERGING: [(u8, u8, u8); 5] = [
+    (0x1d, 0x4e, 0x6b),
+    (0x86, 0xaf, 0xc4),
+    (0xf6, 0xf4, 0xee),
+    (0xd9, 0x9a, 0x6c),
+    (0x8c, 0x2d, 0x1a),
+];
 /// Cells without a finite value.
 const MISSING: RGBColor = RGBColor(0xbb, 0xbb, 0xbb);
 const FONT: &str = "sans-serif";
+/// Font sizes as given to plotters, which writes them at 1/1.24 of that: tick labels, axis
+/// titles, figure titles. Tick labels come out at about 11 px, the smallest
+/// that stays legible at the figure's width.
+const LABEL_SIZE: f64 = 14.0;
+const TITLE_SIZE: f64 = 15.0;
+const CAPTION_SIZE: f64 = 19.0;
 
 /// Why a figure could not be drawn.
 #[derive(Debug, thiserror::Error)]
@@ -60,14 +76,21 @@ fn draw_err<E: std::fmt::Debug>(e: E) -> PlotError {
     PlotError::Draw(format!("{e:?}"))
 }
 
-/// The colour of level `k` of [`LEVELS`].
-fn colour(k: usize) -> RGBColor {
-    let t = k as f64 / (LEVELS - 1) as f64 * (STOPS.len() - 1) as f64;
-    let i = (t.floor() as usize).min(STOPS.len() - 2);
+/// The colour of level `k` of [`LEVELS`] between `stops`.
+fn colour(stops: &[(u8, u8, u8); 5], k: usize) -> RGBColor {
+    let t = k as f64 / (LEVELS - 1) as f64 * (stops.len() - 1) as f64;
+    let i = (t.floor() as usize).min(stops.len() - 2);
     let f = t - i as f64;
     let mix = |a: u8, b: u8| (f64::from(a) + (f64::from(b) - f64::from(a)) * f).round() as u8;
-    let (a, b) = (STOPS[i], STOPS[i + 1]);
+    let (a, b) = (stops[i], stops[i + 1]);
     RGBColor(mix(a.0, b.0), mix(a.1, b.1), mix(a.2, b.2))
+}
+
+/// Tick labels of an axis over `range`: [`tick`], with the rounding residue of a tick at zero
+/// (such as 1.1e-16) shown as 0.
+fn ticks((lo, hi): (f64, f64)) -> impl Fn(&f64) -> String {
+    let zero = 1e-9 * (hi - lo).abs();
+    move |v| tick(if v.abs() <= zero { 0.0 } else { *v })
 }
 
 /// Finite range of `values`, widened when it is empty or a single point so axes stay valid.
@@ -296,6 +319,8 @@ pub(crate) fn line_plot(
         y_title,
         legend: traces.len() > 1,
         log: (log_x, log_y),
+        x_range: (x0, x1),
+        y_range: (y0, y1),
     };
     let mut svg = String::new();
     let overlay;
@@ -303,7 +328,7 @@ pub(crate) fn line_plot(
         let root = SVGBackend::with_string(&mut svg, (WIDTH, HEIGHT)).into_drawing_area();
         let mut builder = ChartBuilder::on(&root);
         builder
-            .caption(title, (FONT, 16))
+            .caption(title, (FONT, CAPTION_SIZE))
             .margin(12)
             .x_label_area_size(44)
             .y_label_area_size(64);
@@ -354,6 +379,9 @@ struct Frame {
     y_title: String,
     legend: bool,
     log: (bool, bool),
+    /// The data ranges the chart is built on.
+    x_range: (f64, f64),
+    y_range: (f64, f64),
 }
 
 /// `colour` mixed halfway to white: the lighter tone of an earlier version's curve.
@@ -362,8 +390,98 @@ fn lighter(colour: RGBColor) -> RGBColor {
     RGBColor(mix(colour.0), mix(colour.1), mix(colour.2))
 }
 
-/// Axes, curves and legend on a built chart, for any pair of linear or logarithmic axes;
-/// returns the SVG of the marks, drawn by hand since they need transparency and text.
+/// Data to pixels on a chart, in floating point: plotters places its own marks on whole pixels,
+/// which turns a smooth curve into a staircase on a sharp screen, so curves and checks are
+/// written by hand with this mapping (plotters' own, without its rounding).
+struct Pixels {
+    /// Data range of each axis, as given to the chart.
+    x: (f64, f64),
+    y: (f64, f64),
+    /// Which axes are logarithmic.
+    log: (bool, bool),
+    /// Pixels of the ends of each axis (the y axis runs downwards).
+    px: (f64, f64),
+    py: (f64, f64),
+}
+
+impl Pixels {
+    fn new<'a, X, Y>(
+        chart: &ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
+        frame: &Frame,
+    ) -> Self
+    where
+        X: Ranged<ValueType = f64> + ValueFormatter<f64>,
+        Y: Ranged<ValueType = f64> + ValueFormatter<f64>,
+    {
+        let (xs, ys) = chart.plotting_area().get_pixel_range();
+        Self {
+            x: frame.x_range,
+            y: frame.y_range,
+            log: frame.log,
+            px: (f64::from(xs.start), f64::from(xs.end - 1)),
+            py: (f64::from(ys.end - 1), f64::from(ys.start)),
+        }
+    }
+
+    /// Where `v` falls between `ends` (0 to 1), on a linear or logarithmic scale.
+    fn fraction(v: f64, (lo, hi): (f64, f64), log: bool) -> f64 {
+        if log {
+            (v.ln() - lo.ln()) / (hi.ln() - lo.ln())
+        } else {
+            (v - lo) / (hi - lo)
+        }
+    }
+
+    /// The horizontal pixel of `v`, or `open` when it is missing or off the axis's domain.
+    fn x(&self, v: Option<f64>, open: f64) -> f64 {
+        self.along(v, self.x, self.log.0, self.px, open)
+    }
+
+    /// The vertical pixel of `v`, or `open` when it is missing or off the axis's domain.
+    fn y(&self, v: Option<f64>, open: f64) -> f64 {
+        self.along(v, self.y, self.log.1, self.py, open)
+    }
+
+    fn along(
+        &self,
+        v: Option<f64>,
+        range: (f64, f64),
+        log: bool,
+        ends: (f64, f64),
+        open: f64,
+    ) -> f64 {
+        match v {
+            Some(v) if v.is_finite() && (!log || v > 0.0) => {
+                let t = Self::fraction(v, range, log).clamp(0.0, 1.0);
+                ends.0 + (ends.1 - ends.0) * t
+            }
+            _ => open,
+        }
+    }
+
+    /// The plotting area's edges: left, right, top, bottom.
+    fn edges(&self) -> (f64, f64, f64, f64) {
+        (self.px.0, self.px.1, self.py.1, self.py.0)
+    }
+}
+
+/// A pixel coordinate with one decimal, without a trailing `.0`.
+fn px(v: f64) -> String {
+    let r = (v * 10.0).round() / 10.0;
+    if r.fract() == 0.0 {
+        format!("{r:.0}")
+    } else {
+        format!("{r:.1}")
+    }
+}
+
+/// An `RGBColor` as `#rrggbb`.
+fn hex(c: RGBColor) -> String {
+    format!("#{:02x}{:02x}{:02x}", c.0, c.1, c.2)
+}
+
+/// Axes and legend on a built chart, for any pair of linear or logarithmic axes; returns the
+/// curves and the marks as SVG, drawn by hand (see [`Pixels`]).
 fn lines<'a, X, Y>(
     mut chart: ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
     frame: &Frame,
@@ -379,177 +497,183 @@ where
         .configure_mesh()
         .x_desc(frame.x_title.as_str())
         .y_desc(frame.y_title.as_str())
-        .x_label_formatter(&|v| tick(*v))
-        .y_label_formatter(&|v| tick(*v))
-        .label_style((FONT, 12))
-        .axis_desc_style((FONT, 13))
+        .x_label_formatter(&ticks(frame.x_range))
+        .y_label_formatter(&ticks(frame.y_range))
+        .label_style((FONT, LABEL_SIZE))
+        .axis_desc_style((FONT, TITLE_SIZE))
         .bold_line_style(RGBColor(0xe4, 0xe1, 0xd8))
         .light_line_style(RGBColor(0xf3, 0xf1, 0xea))
         .draw()
         .map_err(draw_err)?;
+    let pixels = Pixels::new(&chart, frame);
+    let mut out = String::from("<g fill=\"none\" stroke-width=\"2\" stroke-linejoin=\"round\">");
     // Earlier versions first, so that the current curves lie on top.
     let mut order: Vec<usize> = (0..traces.len()).collect();
     order.sort_by_key(|&i| !traces[i].old);
     for i in order {
-        let (points, trace) = (&series[i], &traces[i]);
+        let trace = &traces[i];
         let base = PALETTE[trace.colour % PALETTE.len()];
-        if trace.old {
-            let style = ShapeStyle::from(&lighter(base)).stroke_width(2);
-            chart
-                .draw_series(DashedLineSeries::new(points.iter().copied(), 7, 5, style))
-                .map_err(draw_err)?
-                .label(trace.name.as_str())
-                .legend(move |(x, y)| {
-                    DashedPathElement::new(vec![(x, y), (x + 18, y)], 5, 3, style)
-                });
+        let (colour, dash) = if trace.old {
+            (lighter(base), " stroke-dasharray=\"7 5\"")
         } else {
-            let style = ShapeStyle::from(&base).stroke_width(2);
-            chart
-                .draw_series(LineSeries::new(points.iter().copied(), style))
-                .map_err(draw_err)?
-                .label(trace.name.as_str())
-                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
+            (base, "")
+        };
+        let points: Vec<String> = series[i]
+            .iter()
+            .map(|&(x, y)| {
+                format!(
+                    "{},{}",
+                    px(pixels.x(Some(x), 0.0)),
+                    px(pixels.y(Some(y), 0.0))
+                )
+            })
+            .collect();
+        let _ = write!(
+            out,
+            "<polyline stroke=\"{}\"{dash} points=\"{}\"/>",
+            hex(colour),
+            points.join(" ")
+        );
+        // An empty series carries the legend entry: plotters draws the legend, not the curve.
+        let style = ShapeStyle::from(&colour).stroke_width(2);
+        let entry = chart
+            .draw_series(LineSeries::new(std::iter::empty(), style))
+            .map_err(draw_err)?
+            .label(trace.name.as_str());
+        if trace.old {
+            entry.legend(move |(x, y)| {
+                DashedPathElement::new(vec![(x, y), (x + 18, y)], 5, 3, style)
+            });
+        } else {
+            entry.legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 18, y)], style));
         }
     }
+    out.push_str("</g>");
+    out.push_str(&marks_svg(&pixels, marks));
     if frame.legend {
         chart
             .configure_series_labels()
             .position(SeriesLabelPosition::UpperRight)
-            .label_font((FONT, 12))
+            .label_font((FONT, LABEL_SIZE))
             .background_style(WHITE.mix(0.85))
             .border_style(RGBColor(0xd5, 0xd2, 0xc8))
             .draw()
             .map_err(draw_err)?;
     }
-    Ok(marks_svg(&chart, frame.log, marks))
+    Ok(out)
 }
 
 /// The checks drawn on a chart: a bar with end caps at a point, a band across the plot for an
 /// extremum's value or position, a diamond where a `near` check aims, and the check's number.
 /// Ranges are clipped to the plotting area; an open side runs to its edge.
-fn marks_svg<'a, X, Y>(
-    chart: &ChartContext<'a, SVGBackend<'a>, Cartesian2d<X, Y>>,
-    (log_x, log_y): (bool, bool),
-    marks: &[Mark],
-) -> String
-where
-    X: Ranged<ValueType = f64> + ValueFormatter<f64>,
-    Y: Ranged<ValueType = f64> + ValueFormatter<f64>,
-{
+fn marks_svg(p: &Pixels, marks: &[Mark]) -> String {
     if marks.is_empty() {
         return String::new();
     }
-    let (px, py) = chart.plotting_area().get_pixel_range();
-    let (ax, ay) = (chart.x_range().start, chart.y_range().start);
-    let usable = |v: f64, log: bool| v.is_finite() && (!log || v > 0.0);
-    // Pixel of a value on either axis, or `open` when it is missing or off a log axis.
-    let px_x = |v: Option<f64>, open: i32| match v {
-        Some(v) if usable(v, log_x) => chart.backend_coord(&(v, ay)).0.clamp(px.start, px.end),
-        _ => open,
-    };
-    let px_y = |v: Option<f64>, open: i32| match v {
-        Some(v) if usable(v, log_y) => chart.backend_coord(&(ax, v)).1.clamp(py.start, py.end),
-        _ => open,
-    };
-    let mut out =
-        String::from("<g class=\"fb-marks\" font-family=\"sans-serif\" font-size=\"11\">");
+    let (left, right, top, bottom) = p.edges();
+    let mut out = format!(
+        "<g class=\"fb-marks\" font-family=\"{FONT}\" font-size=\"12\" font-weight=\"bold\">"
+    );
     for m in marks {
-        let c = if m.passed { HELD } else { FAILED };
-        let colour = format!("#{:02x}{:02x}{:02x}", c.0, c.1, c.2);
-        let diamond = |out: &mut String, (x, y): (i32, i32)| {
-            let _ = write!(
-                out,
-                "<path d=\"M{x} {}l5 5l-5 5l-5 -5z\" fill=\"#fff\" stroke=\"{colour}\" stroke-width=\"2\"/>",
-                y - 5
-            );
-        };
+        let colour = hex(if m.passed { HELD } else { FAILED });
         let (label_at, aim) = match m.place {
             Place::At(x) => {
-                let x = px_x(Some(x), px.start);
-                let (top, bottom) = (px_y(m.hi, py.start), px_y(m.lo, py.end));
+                let x = p.x(Some(x), left);
+                let (hi, lo) = (p.y(m.hi, top), p.y(m.lo, bottom));
                 let _ = write!(
                     out,
-                    "<path d=\"M{x} {top}V{bottom}\" stroke=\"{colour}\" stroke-width=\"2\"/>"
+                    "<path d=\"M{} {}V{}\" stroke=\"{colour}\" stroke-width=\"2\"/>",
+                    px(x),
+                    px(hi),
+                    px(lo)
                 );
-                for (end, y) in [(m.hi, top), (m.lo, bottom)]
-                    .into_iter()
-                    .take(ends(top, bottom))
-                {
+                for (end, y) in [(m.hi, hi), (m.lo, lo)].into_iter().take(ends(hi, lo)) {
                     if end.is_some() {
                         let _ = write!(
                             out,
-                            "<path d=\"M{} {y}h12\" stroke=\"{colour}\" stroke-width=\"2\"/>",
-                            x - 6
+                            "<path d=\"M{} {}h12\" stroke=\"{colour}\" stroke-width=\"2\"/>",
+                            px(x - 6.0),
+                            px(y)
                         );
                     }
                 }
-                let aim = m.near.map(|n| (x, px_y(Some(n), (top + bottom) / 2)));
-                ((x + 8, aim.map_or(top, |a| a.1) - 6), aim)
+                let aim = m.near.map(|n| (x, p.y(Some(n), (hi + lo) / 2.0)));
+                ((x + 8.0, aim.map_or(hi, |a| a.1) - 7.0), aim)
             }
             Place::Level => {
-                let (top, bottom) = (px_y(m.hi, py.start), px_y(m.lo, py.end));
-                band(&mut out, &colour, (px.start, px.end), (top, bottom));
-                for (end, y) in [(m.hi, top), (m.lo, bottom)]
-                    .into_iter()
-                    .take(ends(top, bottom))
-                {
+                let (hi, lo) = (p.y(m.hi, top), p.y(m.lo, bottom));
+                band(&mut out, &colour, (left, right), (hi, lo));
+                for (end, y) in [(m.hi, hi), (m.lo, lo)].into_iter().take(ends(hi, lo)) {
                     if end.is_some() {
-                        line(&mut out, &colour, (px.start, y), (px.end, y));
+                        line(&mut out, &colour, (left, y), (right, y));
                     }
                 }
-                ((px.start + 6, top.min(bottom) - 4), None)
+                ((left + 6.0, hi.min(lo) - 5.0), None)
             }
             Place::Position => {
-                let (left, right) = (px_x(m.lo, px.start), px_x(m.hi, px.end));
-                band(&mut out, &colour, (left, right), (py.start, py.end));
-                for (end, x) in [(m.lo, left), (m.hi, right)]
-                    .into_iter()
-                    .take(ends(left, right))
-                {
+                let (lo, hi) = (p.x(m.lo, left), p.x(m.hi, right));
+                band(&mut out, &colour, (lo, hi), (top, bottom));
+                for (end, x) in [(m.lo, lo), (m.hi, hi)].into_iter().take(ends(lo, hi)) {
                     if end.is_some() {
-                        line(&mut out, &colour, (x, py.start), (x, py.end));
+                        line(&mut out, &colour, (x, top), (x, bottom));
                     }
                 }
-                ((right.max(left) + 4, py.start + 14), None)
+                // Low down: extrema are usually peaks, where the other marks sit.
+                ((hi.max(lo) + 5.0, bottom - 8.0), None)
             }
         };
-        if let Some(a) = aim {
-            diamond(&mut out, a);
+        if let Some((x, y)) = aim {
+            let _ = write!(
+                out,
+                "<path d=\"M{} {}l5 5l-5 5l-5 -5z\" fill=\"#fff\" stroke=\"{colour}\" stroke-width=\"2\"/>",
+                px(x),
+                px(y - 5.0)
+            );
         }
         let _ = write!(
             out,
-            "<text x=\"{}\" y=\"{}\" fill=\"{colour}\" font-weight=\"bold\">{}</text>",
-            label_at.0, label_at.1, m.number
+            "<text x=\"{}\" y=\"{}\" fill=\"{colour}\">{}</text>",
+            px(label_at.0),
+            px(label_at.1),
+            m.number
         );
     }
     out.push_str("</g>");
     out
 }
 
-/// How many ends of a range to draw: one when both fall on the same pixel.
-fn ends(a: i32, b: i32) -> usize {
-    if a == b { 1 } else { 2 }
+/// How many ends of a range to draw: one when both fall within half a pixel.
+fn ends(a: f64, b: f64) -> usize {
+    if (a - b).abs() < 0.5 { 1 } else { 2 }
 }
 
-/// A translucent rectangle between pixel columns `xs` and rows `ys`; nothing when it is empty.
-fn band(out: &mut String, colour: &str, xs: (i32, i32), ys: (i32, i32)) {
+/// A translucent rectangle between pixel columns `xs` and rows `ys`; nothing when it is thinner
+/// than a pixel (its edge lines show it).
+fn band(out: &mut String, colour: &str, xs: (f64, f64), ys: (f64, f64)) {
     let (x, w) = (xs.0.min(xs.1), (xs.1 - xs.0).abs());
     let (y, h) = (ys.0.min(ys.1), (ys.1 - ys.0).abs());
-    if w == 0 || h == 0 {
+    if w < 1.0 || h < 1.0 {
         return;
     }
     let _ = write!(
         out,
-        "<rect x=\"{x}\" y=\"{y}\" width=\"{w}\" height=\"{h}\" fill=\"{colour}\" fill-opacity=\"0.12\"/>"
+        "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"{colour}\" fill-opacity=\"0.12\"/>",
+        px(x),
+        px(y),
+        px(w),
+        px(h)
     );
 }
 
 /// A thin dashed line between two pixels: the edge of an accepted range.
-fn line(out: &mut String, colour: &str, a: (i32, i32), b: (i32, i32)) {
+fn line(out: &mut String, colour: &str, a: (f64, f64), b: (f64, f64)) {
     let _ = write!(
         out,
         "<path d=\"M{} {}L{} {}\" stroke=\"{colour}\" stroke-dasharray=\"4 3\"/>",
-        a.0, a.1, b.0, b.1
+        px(a.0),
+        px(a.1),
+        px(b.0),
+        px(b.1)
     );
 }
 
@@ -581,12 +705,39 @@ fn blocks(n: usize) -> Vec<(usize, usize)> {
         .collect()
 }
 
+/// How a heat map is drawn: its colours over a range (SI) shared with another map, else over
+/// its own; on the sequential scale, or the diverging one for differences; at full width, or
+/// narrower to stand beside another map without shrinking its text.
+#[derive(Clone, Copy, Debug)]
+pub(crate) struct MapStyle {
+    /// The values at the two ends of the colour bar (SI).
+    pub range: Option<(f64, f64)>,
+    /// Diverging colours, zero in the middle.
+    pub diverging: bool,
+    /// Width in CSS pixels.
+    pub width: u32,
+}
+
+impl Default for MapStyle {
+    fn default() -> Self {
+        Self {
+            range: None,
+            diverging: false,
+            width: WIDTH,
+        }
+    }
+}
+
+/// The width of a heat map that stands beside another.
+pub(crate) const PAIR_WIDTH: u32 = 540;
+
 /// A heat map of `z` over `x` (horizontal) and `y` (vertical) with a colour bar.
 pub(crate) fn heat_map(
     title: &str,
     x: &Column,
     y: &Column,
     z: &Column,
+    style: MapStyle,
 ) -> Result<String, PlotError> {
     let (nx, ny) = (x.values.len(), y.values.len());
     if nx == 0 || ny == 0 || z.values.len() != nx * ny {
@@ -596,11 +747,21 @@ pub(crate) fn heat_map(
             z.values.len()
         )));
     }
+    let ends: Vec<f64> = style.range.map_or(vec![], |(a, b)| vec![a, b]);
     let (sx, sy, sz) = (
         scale_for(x.dim, &x.values),
         scale_for(y.dim, &y.values),
-        scale_for(z.dim, &z.values),
+        scale_for(
+            z.dim,
+            ends.as_slice()
+                .iter()
+                .chain(&z.values)
+                .copied()
+                .collect::<Vec<_>>()
+                .as_slice(),
+        ),
     );
+    let stops = if style.diverging { &DIVERGING } else { &STOPS };
     let ex: Vec<f64> = edges(&x.values).iter().map(|v| v * sx.factor).collect();
     let ey: Vec<f64> = edges(&y.values).iter().map(|v| v * sy.factor).collect();
     if ex.iter().chain(&ey).any(|v| !v.is_finite()) {
@@ -609,7 +770,10 @@ pub(crate) fn heat_map(
             z.label
         )));
     }
-    let (z0, z1) = range(z.values.iter().map(|v| v * sz.factor), false);
+    let (z0, z1) = match style.range {
+        Some((a, b)) if a.is_finite() && b.is_finite() && b > a => (a * sz.factor, b * sz.factor),
+        _ => range(z.values.iter().map(|v| v * sz.factor), false),
+    };
     let (bx, by) = (blocks(nx), blocks(ny));
     // Mean of each block of points, row by row (y outer) so runs along x can be merged.
     let level = |(i0, i1): (usize, usize), (j0, j1): (usize, usize)| -> Option<usize> {
@@ -630,10 +794,11 @@ pub(crate) fn heat_map(
     };
     let mut paths: Vec<String> = vec![String::new(); LEVELS + 1];
     let mut svg = String::new();
+    let bar_levels;
     {
-        let root = SVGBackend::with_string(&mut svg, (WIDTH, HEIGHT)).into_drawing_area();
-        let root = root.titled(title, (FONT, 16)).map_err(draw_err)?;
-        let (main, bar) = root.split_horizontally(WIDTH - 110);
+        let root = SVGBackend::with_string(&mut svg, (style.width, HEIGHT)).into_drawing_area();
+        let root = root.titled(title, (FONT, CAPTION_SIZE)).map_err(draw_err)?;
+        let (main, bar) = root.split_horizontally(style.width.saturating_sub(110));
         let (lo_x, hi_x) = range(ex.iter().copied(), false);
         let (lo_y, hi_y) = range(ey.iter().copied(), false);
         let mut chart = ChartBuilder::on(&main)
@@ -647,10 +812,10 @@ pub(crate) fn heat_map(
             .disable_mesh()
             .x_desc(axis_title(&x.label, &sx))
             .y_desc(axis_title(&y.label, &sy))
-            .x_label_formatter(&|v| tick(*v))
-            .y_label_formatter(&|v| tick(*v))
-            .label_style((FONT, 12))
-            .axis_desc_style((FONT, 13))
+            .x_label_formatter(&ticks((lo_x, hi_x)))
+            .y_label_formatter(&ticks((lo_y, hi_y)))
+            .label_style((FONT, LABEL_SIZE))
+            .axis_desc_style((FONT, TITLE_SIZE))
             .draw()
             .map_err(draw_err)?;
         for &(j0, j1) in &by {
@@ -675,17 +840,18 @@ pub(crate) fn heat_map(
                 push_cell(&mut paths, r);
             }
         }
-        colour_bar(&bar, z0, z1, &axis_title(&z.label, &sz))?;
+        bar_levels = colour_bar(&bar, (z0, z1), stops, &axis_title(&z.label, &sz))?;
         root.present().map_err(draw_err)?;
     }
     let mut cells = String::from("<g shape-rendering=\"crispEdges\">");
+    cells.push_str(&bar_levels);
     for (k, d) in paths.iter().enumerate().filter(|(_, d)| !d.is_empty()) {
-        let c = if k == LEVELS { MISSING } else { colour(k) };
-        let _ = write!(
-            cells,
-            "<path fill=\"#{:02x}{:02x}{:02x}\" d=\"{d}\"/>",
-            c.0, c.1, c.2
-        );
+        let c = if k == LEVELS {
+            MISSING
+        } else {
+            colour(stops, k)
+        };
+        let _ = write!(cells, "<path fill=\"{}\" d=\"{d}\"/>", hex(c));
     }
     cells.push_str("</g>");
     // Cells go first so that the axes plotters drew stay on top of them.
@@ -705,12 +871,13 @@ fn push_cell(paths: &mut [String], (k, x0, x1, y0, y1): (usize, i32, i32, i32, i
 }
 
 /// The colour bar beside a heat map: the levels from `z0` (bottom) to `z1` (top), labelled.
+/// Plotters draws the axis; the levels come back as SVG rectangles.
 fn colour_bar(
     area: &DrawingArea<SVGBackend<'_>, plotters::coord::Shift>,
-    z0: f64,
-    z1: f64,
+    (z0, z1): (f64, f64),
+    stops: &[(u8, u8, u8); 5],
     title: &str,
-) -> Result<(), PlotError> {
+) -> Result<String, PlotError> {
     let mut chart: ChartContext<'_, _, Cartesian2d<RangedCoordf64, RangedCoordf64>> =
         ChartBuilder::on(area)
             .margin_top(12)
@@ -724,19 +891,28 @@ fn colour_bar(
         .disable_mesh()
         .disable_x_axis()
         .y_desc(title)
-        .y_label_formatter(&|v| tick(*v))
-        .label_style((FONT, 12))
-        .axis_desc_style((FONT, 13))
+        .y_label_formatter(&ticks((z0, z1)))
+        .label_style((FONT, LABEL_SIZE))
+        .axis_desc_style((FONT, TITLE_SIZE))
         .draw()
         .map_err(draw_err)?;
+    // Written by hand into the cells' crisp-edged group: plotters' anti-aliased rectangles
+    // leave light seams between the levels.
     let step = (z1 - z0) / LEVELS as f64;
-    chart
-        .draw_series((0..LEVELS).map(|k| {
-            let lo = z0 + step * k as f64;
-            Rectangle::new([(0.0, lo), (1.0, lo + step)], colour(k).filled())
-        }))
-        .map_err(draw_err)?;
-    Ok(())
+    let mut out = String::new();
+    for k in 0..LEVELS {
+        let lo = z0 + step * k as f64;
+        let (x0, y0) = chart.backend_coord(&(0.0, lo + step));
+        let (x1, y1) = chart.backend_coord(&(1.0, lo));
+        let _ = write!(
+            out,
+            "<rect x=\"{x0}\" y=\"{y0}\" width=\"{}\" height=\"{}\" fill=\"{}\"/>",
+            x1 - x0,
+            y1 - y0,
+            hex(colour(stops, k))
+        );
+    }
+    Ok(out)
 }
 
 #[cfg(test)]
@@ -878,9 +1054,9 @@ mod tests {
             (0..n).map(|i| i as f64 * 1e-6).collect(),
         );
         let z = col("p", [0; 5], (0..n * n).map(|k| (k % 7) as f64).collect());
-        let svg = heat_map("m", &x, &y, &z).expect("drawn");
+        let svg = heat_map("m", &x, &y, &z, MapStyle::default()).expect("drawn");
         assert!(svg.matches('M').count() <= 101 * 101 + 200);
         let short = col("p", [0; 5], vec![1.0; 5]);
-        assert!(heat_map("m", &x, &y, &short).is_err());
+        assert!(heat_map("m", &x, &y, &short, MapStyle::default()).is_err());
     }
 }
