@@ -50,11 +50,12 @@ options of run and check:
 options of run:
        --no-cache           recompute every evolve block
        --cache DIR          keep cached results in DIR (default: .fieldbook-cache beside each file)
-       --out DIR            write DIR/NAME.record.json and the report DIR/NAME.html (atomically)
-       --templates DIR      take report.html, diff.html and style.css from DIR where present
-                            (also for diff --html)
-       --force              replace a record of a different input in --out, or a file at the
-                            path of diff --html that is not a diff page
+       --out DIR            write DIR/NAME.record.json, the report DIR/NAME.html and the
+                            index DIR/index.html of every report there (atomically)
+       --templates DIR      take report.html, index.html, diff.html and style.css from DIR
+                            where present (also for diff --html)
+       --force              replace a record of a different input in --out, or an index.html
+                            or diff page that Fieldbook did not write
        --csv                with --out: also write every plotted or tabulated series as CSV
        fieldbook --version";
 
@@ -174,12 +175,23 @@ fn main() -> ExitCode {
             .max()
             .unwrap_or(OK),
         "diff" => diff(&args),
-        _ => args
-            .files
-            .iter()
-            .map(|f| one_file(&args, f))
-            .max()
-            .unwrap_or(OK),
+        _ => {
+            let codes: Vec<u8> = args.files.iter().map(|f| one_file(&args, f)).collect();
+            let mut code = codes.iter().copied().max().unwrap_or(OK);
+            if args.command == "run"
+                && let Some(dir) = &args.out
+            {
+                let stopped: Vec<&Path> = args
+                    .files
+                    .iter()
+                    .zip(&codes)
+                    .filter(|(_, c)| **c == INPUT_ERROR)
+                    .map(|(f, _)| f.as_path())
+                    .collect();
+                code = code.max(write_index(&args, dir, &stopped));
+            }
+            code
+        }
     };
     ExitCode::from(code)
 }
@@ -280,6 +292,74 @@ fn diff(args: &Args) -> u8 {
         }
     }
     if changes.is_empty() { OK } else { CHECK_FAILED }
+}
+
+/// Writes `dir/index.html`: a row for every record in `dir`, and for each of `stopped` (files
+/// of this run that wrote nothing because of an input error) a row saying so. Nothing is
+/// written when `dir` does not exist (no file of this run got that far).
+fn write_index(args: &Args, dir: &Path, stopped: &[&Path]) -> u8 {
+    let Ok(listing) = std::fs::read_dir(dir) else {
+        return OK;
+    };
+    let mut names: Vec<String> = listing
+        .filter_map(|e| e.ok()?.file_name().into_string().ok())
+        .filter_map(|n| n.strip_suffix(".record.json").map(str::to_string))
+        .filter(|n| !n.starts_with('.'))
+        .collect();
+    names.sort();
+    let mut entries: Vec<render::index::Entry> = names
+        .iter()
+        .map(|n| {
+            let path = dir.join(format!("{n}.record.json"));
+            match record::io::read(&path) {
+                Ok(r) => {
+                    let report = dir.join(format!("{}.html", r.name)).is_file();
+                    render::index::Entry::of(&r, report)
+                }
+                Err(e) => render::index::Entry::missing(
+                    n,
+                    &path.display().to_string(),
+                    format!("unreadable: {e}"),
+                ),
+            }
+        })
+        .collect();
+    for file in stopped {
+        let stem = file
+            .file_stem()
+            .map_or(String::new(), |s| s.to_string_lossy().into_owned());
+        match entries.iter_mut().find(|e| e.name == stem) {
+            Some(e) => {
+                e.note = Some(format!(
+                    "this run stopped with an input error; the report is the earlier one of {}",
+                    e.date
+                ))
+            }
+            None => entries.push(render::index::Entry::missing(
+                &stem,
+                &file.display().to_string(),
+                "input error: nothing was written (see the messages of the run)".into(),
+            )),
+        }
+    }
+    let path = dir.join("index.html");
+    let written = render::index::page(
+        &dir.display().to_string(),
+        &entries,
+        args.templates.as_deref(),
+    )
+    .map_err(|e| e.to_string())
+    .and_then(|page| write_page(&path, &page, render::PageKind::Index, args.force));
+    match written {
+        Ok(()) => {
+            say!("index: {}", path.display());
+            OK
+        }
+        Err(e) => {
+            eprintln!("error: index {}: {e}", path.display());
+            INPUT_ERROR
+        }
+    }
 }
 
 /// Writes a diff or index page atomically, unless `path` holds something else (a record, a

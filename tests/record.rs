@@ -215,7 +215,7 @@ fn a_record_of_another_input_is_kept_unless_forced() {
         .unwrap()
         .map(|e| e.unwrap().file_name())
         .collect();
-    // The record and its report, and nothing else.
+    // The record, its report and the folder's index, and nothing else.
     let mut leftovers: Vec<String> = leftovers
         .iter()
         .map(|n| n.to_string_lossy().into_owned())
@@ -223,7 +223,7 @@ fn a_record_of_another_input_is_kept_unless_forced() {
     leftovers.sort();
     assert_eq!(
         leftovers,
-        ["line.html", "line.record.json"],
+        ["index.html", "line.html", "line.record.json"],
         "{leftovers:?}"
     );
 }
@@ -269,7 +269,11 @@ fn a_killed_run_leaves_the_previous_record_intact() {
         .map(|n| n.to_string_lossy().into_owned())
         .collect();
     names.sort();
-    assert_eq!(names, ["chevron.html", "chevron.record.json"], "{names:?}");
+    assert_eq!(
+        names,
+        ["chevron.html", "chevron.record.json", "index.html"],
+        "{names:?}"
+    );
 }
 
 /// `--csv` writes every plotted or tabulated series next to the record, with units in the

@@ -507,3 +507,100 @@ fn a_rerun_says_what_it_was_derived_from() {
         without_record(&html)
     );
 }
+
+#[test]
+fn run_out_writes_an_index_of_every_report_in_the_folder() {
+    let dir = temp_dir("index");
+    let out = dir.join("out");
+    let broken = dir.join("broken.md");
+    std::fs::write(&broken, "# Broken\n\n```params\nx = \"1 +\"\n```\n").unwrap();
+    let o = bin()
+        .arg("run")
+        .arg(example("steady-state-line"))
+        .arg(example("stirap"))
+        .arg(&broken)
+        .arg("--out")
+        .arg(&out)
+        .arg("--cache")
+        .arg(dir.join("cache"))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    let index = std::fs::read_to_string(out.join("index.html")).unwrap();
+    assert_nothing_outside(&index);
+    for name in ["steady-state-line", "stirap"] {
+        let rec = record::io::read(&out.join(format!("{name}.record.json"))).unwrap();
+        let title = rec
+            .cells
+            .iter()
+            .find_map(|c| c.text.lines().find_map(|l| l.strip_prefix("# ")))
+            .unwrap();
+        assert!(
+            index.contains(&format!("<a href=\"{name}.html\">{title}</a>")),
+            "{name}: {index}"
+        );
+        assert!(index.contains(&format!("{} held", rec.checks.len())));
+    }
+    assert!(
+        index.contains("input error: nothing was written"),
+        "{index}"
+    );
+    assert!(!index.contains("href=\"broken.html\""));
+    assert!(index.contains("1 of 3 run-files need attention"));
+
+    // A later run of one file keeps the other rows: the index is the folder's.
+    let o = bin()
+        .arg("run")
+        .arg(example("landau-zener"))
+        .arg("--out")
+        .arg(&out)
+        .arg("--cache")
+        .arg(dir.join("cache"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", text(&o));
+    let index = std::fs::read_to_string(out.join("index.html")).unwrap();
+    for name in ["landau-zener", "steady-state-line", "stirap"] {
+        assert!(index.contains(&format!("href=\"{name}.html\"")), "{name}");
+    }
+    assert!(index.contains("3 run-files, every check held"), "{index}");
+
+    // An index.html that Fieldbook did not write is kept, unless forced.
+    let other = dir.join("site");
+    std::fs::create_dir_all(&other).unwrap();
+    std::fs::write(other.join("index.html"), "<h1>our group</h1>").unwrap();
+    let run_into = |extra: &[&str]| {
+        bin()
+            .arg("run")
+            .arg(example("landau-zener"))
+            .arg("--out")
+            .arg(&other)
+            .args(extra)
+            .arg("--cache")
+            .arg(dir.join("cache"))
+            .output()
+            .unwrap()
+    };
+    let o = run_into(&[]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(
+        text(&o).contains("not a page Fieldbook wrote"),
+        "{}",
+        text(&o)
+    );
+    assert_eq!(
+        std::fs::read_to_string(other.join("index.html")).unwrap(),
+        "<h1>our group</h1>"
+    );
+    assert!(
+        other.join("landau-zener.html").is_file(),
+        "the report is still written"
+    );
+    let o = run_into(&["--force"]);
+    assert!(o.status.success(), "{}", text(&o));
+    assert!(
+        std::fs::read_to_string(other.join("index.html"))
+            .unwrap()
+            .contains("landau-zener.html")
+    );
+}

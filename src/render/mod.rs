@@ -3,6 +3,7 @@
 //! no script but the embedded record (JSON, read back by [`extract_record`]), nothing fetched.
 
 pub mod diff;
+pub mod index;
 mod plot;
 mod prose;
 mod units;
@@ -63,6 +64,8 @@ pub enum RenderError {
 pub enum PageKind {
     /// A diff page (`fieldbook diff --html`).
     Diff,
+    /// The index of a folder of reports (`fieldbook run --out`).
+    Index,
 }
 
 impl PageKind {
@@ -70,6 +73,7 @@ impl PageKind {
     fn mark(self) -> &'static str {
         match self {
             PageKind::Diff => "\n<!-- fieldbook diff page -->\n",
+            PageKind::Index => "\n<!-- fieldbook index page -->\n",
         }
     }
 
