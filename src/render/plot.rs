@@ -465,6 +465,36 @@ impl Pixels {
     }
 }
 
+/// The corner of the plot where the legend hides the fewest points: the one whose quarter-width,
+/// third-height box holds fewest, the upper right on a tie.
+fn legend_corner(p: &Pixels, series: &[Vec<(f64, f64)>]) -> SeriesLabelPosition {
+    let (left, right, top, bottom) = p.edges();
+    let (w, h) = ((right - left) * 0.45, (bottom - top) / 3.0);
+    let points: Vec<(f64, f64)> = series
+        .iter()
+        .flatten()
+        .map(|&(x, y)| (p.x(Some(x), left), p.y(Some(y), bottom)))
+        .collect();
+    let count = |x0: f64, y0: f64| {
+        points
+            .iter()
+            .filter(|(x, y)| (x0..=x0 + w).contains(x) && (y0..=y0 + h).contains(y))
+            .count()
+    };
+    [
+        (SeriesLabelPosition::UpperRight, count(right - w, top)),
+        (SeriesLabelPosition::UpperLeft, count(left, top)),
+        (
+            SeriesLabelPosition::LowerRight,
+            count(right - w, bottom - h),
+        ),
+        (SeriesLabelPosition::LowerLeft, count(left, bottom - h)),
+    ]
+    .into_iter()
+    .min_by_key(|(_, n)| *n)
+    .map_or(SeriesLabelPosition::UpperRight, |(corner, _)| corner)
+}
+
 /// A pixel coordinate with one decimal, without a trailing `.0`.
 fn px(v: f64) -> String {
     let r = (v * 10.0).round() / 10.0;
@@ -553,7 +583,7 @@ where
     if frame.legend {
         chart
             .configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
+            .position(legend_corner(&pixels, series))
             .label_font((FONT, LABEL_SIZE))
             .background_style(WHITE.mix(0.85))
             .border_style(RGBColor(0xd5, 0xd2, 0xc8))
@@ -1002,6 +1032,31 @@ mod tests {
     }
 
     #[test]
+    fn the_legend_goes_where_the_curves_are_not() {
+        let p = Pixels {
+            x: (0.0, 1.0),
+            y: (0.0, 1.0),
+            log: (false, false),
+            px: (0.0, 100.0),
+            py: (100.0, 0.0),
+        };
+        let rising: Vec<(f64, f64)> = (0..=100)
+            .map(|i| (i as f64 / 100.0, (i as f64 / 100.0).powi(4)))
+            .collect();
+        let corner = legend_corner(&p, std::slice::from_ref(&rising));
+        assert!(
+            matches!(corner, SeriesLabelPosition::UpperLeft),
+            "{corner:?}"
+        );
+        let flat: Vec<(f64, f64)> = rising.iter().map(|&(x, _)| (x, 0.5)).collect();
+        let corner = legend_corner(&p, &[flat]);
+        assert!(
+            matches!(corner, SeriesLabelPosition::UpperRight),
+            "{corner:?}"
+        );
+    }
+
+    #[test]
     fn an_earlier_version_is_dashed_and_lighter() {
         let x = col(
             "t",
@@ -1042,6 +1097,12 @@ mod tests {
             "{svg}"
         );
         assert!(svg.contains("#27476E"), "{svg}");
+        let dashed = format!("stroke=\"{}\" stroke-dasharray=\"7 5\"", hex(old));
+        assert!(svg.contains(&dashed), "the old curve is dashed and lighter");
+        assert!(
+            svg.contains("<polyline stroke=\"#27476e\" points="),
+            "the new one solid"
+        );
     }
 
     #[test]
