@@ -7,7 +7,7 @@ use std::fmt::Write as _;
 use std::path::Path;
 
 use super::plot::{self, MapStyle, PAIR_WIDTH, Trace};
-use super::{PageKind, RenderError, STYLE, escape, fill, template_file};
+use super::{PageKind, RenderError, STYLE, escape, fill, lineage_changes, template_file};
 use crate::record::diff::{Change, Tolerance};
 use crate::record::{CellOutput, CellRecord, Column, Record};
 
@@ -125,21 +125,11 @@ fn files(old: &Side<'_>, new: &Side<'_>) -> String {
     }
     out.push_str("</table>");
     if new.record.lineage.parent.as_deref() == Some(old.record.lineage.results_sha256.as_str()) {
-        let changes = if new.record.lineage.changes.is_empty() {
-            "no parameter changes".to_string()
-        } else {
-            new.record
-                .lineage
-                .changes
-                .iter()
-                .map(|c| format!("<code>{}</code>", escape(c)))
-                .collect::<Vec<_>>()
-                .join(", ")
-        };
         let _ = write!(
             out,
-            "<p class=\"fb-note\">The new record is a re-run of the old one ({}) with {changes}.</p>",
-            escape(&short(&old.record.lineage.results_sha256))
+            "<p class=\"fb-note\">The new record is a re-run of the old one ({}) with {}.</p>",
+            escape(&short(&old.record.lineage.results_sha256)),
+            lineage_changes(new.record)
         );
     }
     out
@@ -241,7 +231,6 @@ fn plots(old: &Side<'_>, new: &Side<'_>) -> Result<String, RenderError> {
                     log_y,
                 }),
             ) => {
-                let traces = overlaid(xa, ya, xb, yb);
                 if xa.dim != xb.dim {
                     let _ = write!(
                         out,
@@ -250,6 +239,7 @@ fn plots(old: &Side<'_>, new: &Side<'_>) -> Result<String, RenderError> {
                     );
                     continue;
                 }
+                let traces = overlaid(xa, ya, xb, yb);
                 let svg = figure(plot::line_plot(
                     title,
                     &xb.label,

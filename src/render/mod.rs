@@ -326,22 +326,26 @@ fn lineage(record: &Record) -> String {
         return String::new();
     };
     let short: String = parent.chars().take(12).collect();
-    let changes = if record.lineage.changes.is_empty() {
-        "no parameter changes".to_string()
-    } else {
-        record
-            .lineage
-            .changes
-            .iter()
-            .map(|c| format!("<code>{}</code>", escape(c)))
-            .collect::<Vec<_>>()
-            .join(", ")
-    };
     format!(
-        "<p class=\"fb-lineage\">Derived from <code title=\"{}\">{}</code> with {changes}</p>",
+        "<p class=\"fb-lineage\">Derived from <code title=\"{}\">{}</code> with {}</p>",
         escape(parent),
-        escape(&short)
+        escape(&short),
+        lineage_changes(record)
     )
+}
+
+/// The parameters a re-run changed, as HTML: `<code>rabi = …</code>, …`.
+fn lineage_changes(record: &Record) -> String {
+    if record.lineage.changes.is_empty() {
+        return "no parameter changes".to_string();
+    }
+    record
+        .lineage
+        .changes
+        .iter()
+        .map(|c| format!("<code>{}</code>", escape(c)))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 /// The source lines a cell spans.

@@ -135,7 +135,8 @@ fn thin(points: Vec<(f64, f64)>) -> Vec<(f64, f64)> {
 }
 
 /// The y scale and title of a plot's curves: scaled by the first curve's unit when all share its
-/// dimension, else in SI.
+/// dimension, else in SI; titled with the curves' label when they all show one quantity (one
+/// curve, or its old and new versions), else "value".
 fn y_axis(curves: &[&Column]) -> (Scale, String) {
     let Some(first) = curves.first() else {
         return (scale_for([0; 5], &[]), String::new());

@@ -133,6 +133,11 @@ pub(crate) fn sanitizer() -> ammonia::Builder<'static> {
     b
 }
 
+/// A formula shown as its TeX, where it cannot be converted.
+fn as_tex(tex: &str) -> String {
+    format!("<code class=\"math\">{}</code>", escape(tex))
+}
+
 /// TeX to MathML, or the TeX itself in a `<code class="math">` when the converter refuses it
 /// (or, should it ever panic, fails).
 fn math(converter: &LatexToMathML, tex: &str, display: bool) -> String {
@@ -148,21 +153,13 @@ fn math(converter: &LatexToMathML, tex: &str, display: bool) -> String {
             }))
         })
         .and_then(|r| r.ok()?.ok());
-    match converted {
-        Some(r) => r.mathml,
-        None => format!("<code class=\"math\">{}</code>", escape(tex)),
-    }
+    converted.map_or_else(|| as_tex(tex), |r| r.mathml)
 }
 
 /// Every formula of `formulas` (TeX, display) as MathML, converted on one thread with a stack
 /// deep enough for any formula [`math`] accepts.
 fn convert_all(formulas: &[(&str, bool)]) -> Vec<String> {
-    let fallback = || {
-        formulas
-            .iter()
-            .map(|(tex, _)| format!("<code class=\"math\">{}</code>", escape(tex)))
-            .collect()
-    };
+    let fallback = || formulas.iter().map(|(tex, _)| as_tex(tex)).collect();
     if formulas.is_empty() {
         return vec![];
     }
