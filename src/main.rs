@@ -1,6 +1,7 @@
-//! The `fieldbook` command line: `check` and `run` run-files. Exit codes are mapped here, in
-//! one place: 0 ok, 1 a check failed, 2 input error, 3 runtime failure (the largest applies when
-//! several files are given).
+//! The `fieldbook` command line: `check` and `run` run-files, `rerun` records, `diff` two of
+//! them. Exit codes are mapped here, in one place: 0 ok, 1 a check failed (for `diff`: the
+//! records differ), 2 input error, 3 runtime failure (the largest applies when several files are
+//! given).
 
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
@@ -54,8 +55,8 @@ options of run:
                             index DIR/index.html of every report there (atomically)
        --templates DIR      take report.html, index.html, diff.html and style.css from DIR
                             where present (also for diff --html)
-       --force              replace a record of a different input in --out, or an index.html
-                            or diff page that Fieldbook did not write
+       --force              replace a record of a different input in --out, or a file at
+                            DIR/index.html or at the diff --html path that Fieldbook did not write
        --csv                with --out: also write every plotted or tabulated series as CSV
        fieldbook --version";
 
