@@ -1,6 +1,7 @@
-//! The `fieldbook` command line: `check` and `run` run-files. Exit codes are mapped here, in
-//! one place: 0 ok, 1 a check failed, 2 input error, 3 runtime failure (the largest applies when
-//! several files are given).
+//! The `fieldbook` command line: `check` and `run` run-files, `rerun` records, `diff` two of
+//! them. Exit codes are mapped here, in one place: 0 ok, 1 a check failed (for `diff`: the
+//! records differ), 2 input error, 3 runtime failure (the largest applies when several files are
+//! given).
 
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
@@ -12,6 +13,7 @@ use fieldbook::kernel::cache::Cache;
 use fieldbook::kernel::session::{self, RunOptions};
 use fieldbook::notebook::{self, diag::Severity};
 use fieldbook::record;
+use fieldbook::render;
 use fieldbook::summary;
 
 /// `println!` that ignores a closed stdout (e.g. `fieldbook diff a b | head`) instead of
@@ -41,15 +43,20 @@ const USAGE: &str =
     "usage: fieldbook check FILE…                  validate run-files without simulating
        fieldbook run FILE… [OPTIONS]          run them and print results and checks
        fieldbook rerun RECORD… [OPTIONS]      re-run a record's source (writes to --out, default .)
-       fieldbook diff A B [--rtol R] [--atol A]   compare two records; exit 1 when they differ
+       fieldbook diff A B [--rtol R] [--atol A] [--html OUT]
+                                              compare two records (or reports); exit 1 when
+                                              they differ; --html also writes a diff page
 options of run and check:
        --set NAME=EXPR      override a parameter (repeatable), e.g. --set rabi=\"2π × 300 kHz\"
 options of run:
        --no-cache           recompute every evolve block
        --cache DIR          keep cached results in DIR (default: .fieldbook-cache beside each file)
-       --out DIR            write DIR/NAME.record.json and the report DIR/NAME.html (atomically)
-       --templates DIR      take report.html and style.css from DIR where present
-       --force              replace a record of a different input in --out
+       --out DIR            write DIR/NAME.record.json, the report DIR/NAME.html and the
+                            index DIR/index.html of every report there (atomically)
+       --templates DIR      take report.html, index.html, diff.html and style.css from DIR
+                            where present (also for diff --html)
+       --force              replace a record of a different input in --out, or a file at
+                            DIR/index.html or at the diff --html path that Fieldbook did not write
        --csv                with --out: also write every plotted or tabulated series as CSV
        fieldbook --version";
 
@@ -63,6 +70,7 @@ struct Args {
     force: bool,
     csv: bool,
     tolerance: record::diff::Tolerance,
+    html: Option<PathBuf>,
 }
 
 fn parse_args(args: Vec<String>) -> Result<Args, String> {
@@ -78,6 +86,7 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
         force: false,
         csv: false,
         tolerance: record::diff::Tolerance::default(),
+        html: None,
     };
     while let Some(a) = it.next() {
         if let Some(rest) = a.strip_prefix("--set") {
@@ -109,6 +118,8 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
             } else {
                 out.tolerance.atol = x;
             }
+        } else if a == "--html" {
+            out.html = Some(it.next().ok_or("--html needs a file name")?.into());
         } else if a == "--force" {
             out.force = true;
         } else if a == "--csv" {
@@ -123,6 +134,9 @@ fn parse_args(args: Vec<String>) -> Result<Args, String> {
     }
     if out.files.is_empty() {
         return Err(format!("`{}` needs at least one run-file", out.command));
+    }
+    if out.html.is_some() && out.command != "diff" {
+        return Err("--html is an option of `diff`".into());
     }
     Ok(out)
 }
@@ -162,12 +176,23 @@ fn main() -> ExitCode {
             .max()
             .unwrap_or(OK),
         "diff" => diff(&args),
-        _ => args
-            .files
-            .iter()
-            .map(|f| one_file(&args, f))
-            .max()
-            .unwrap_or(OK),
+        _ => {
+            let codes: Vec<u8> = args.files.iter().map(|f| one_file(&args, f)).collect();
+            let mut code = codes.iter().copied().max().unwrap_or(OK);
+            if args.command == "run"
+                && let Some(dir) = &args.out
+            {
+                let stopped: Vec<&Path> = args
+                    .files
+                    .iter()
+                    .zip(&codes)
+                    .filter(|(_, c)| **c == INPUT_ERROR)
+                    .map(|(f, _)| f.as_path())
+                    .collect();
+                code = code.max(write_index(&args, dir, &stopped));
+            }
+            code
+        }
     };
     ExitCode::from(code)
 }
@@ -240,11 +265,115 @@ fn diff(args: &Args) -> u8 {
         return INPUT_ERROR;
     };
     let changes = record::diff::diff(&ra, &rb, args.tolerance);
-    say_raw!(
-        "{}",
-        record::diff::summary(&a.display().to_string(), &b.display().to_string(), &changes)
-    );
+    let (a_name, b_name) = (a.display().to_string(), b.display().to_string());
+    say_raw!("{}", record::diff::summary(&a_name, &b_name, &changes));
+    if let Some(out) = &args.html {
+        let old = render::diff::Side {
+            record: &ra,
+            path: &a_name,
+        };
+        let new = render::diff::Side {
+            record: &rb,
+            path: &b_name,
+        };
+        let page = render::diff::page(
+            &old,
+            &new,
+            &changes,
+            args.tolerance,
+            args.templates.as_deref(),
+        )
+        .map_err(|e| e.to_string());
+        match page.and_then(|p| write_page(out, &p, render::PageKind::Diff, args.force)) {
+            Ok(()) => say!("diff page: {}", out.display()),
+            Err(e) => {
+                eprintln!("error: diff page {}: {e}", out.display());
+                return INPUT_ERROR;
+            }
+        }
+    }
     if changes.is_empty() { OK } else { CHECK_FAILED }
+}
+
+/// Writes `dir/index.html`: a row for every record in `dir`, and for each of `stopped` (files
+/// of this run that wrote nothing because of an input error) a row saying so. Nothing is
+/// written when `dir` does not exist (no file of this run got that far).
+fn write_index(args: &Args, dir: &Path, stopped: &[&Path]) -> u8 {
+    let Ok(listing) = std::fs::read_dir(dir) else {
+        return OK;
+    };
+    let mut names: Vec<String> = listing
+        .filter_map(|e| e.ok()?.file_name().into_string().ok())
+        .filter_map(|n| n.strip_suffix(".record.json").map(str::to_string))
+        .filter(|n| !n.starts_with('.'))
+        .collect();
+    names.sort();
+    let mut entries: Vec<render::index::Entry> = names
+        .iter()
+        .map(|n| {
+            let path = dir.join(format!("{n}.record.json"));
+            match record::io::read(&path) {
+                Ok(r) => {
+                    let report = dir.join(format!("{}.html", r.name)).is_file();
+                    render::index::Entry::of(&r, report)
+                }
+                Err(e) => render::index::Entry::missing(
+                    n,
+                    &path.display().to_string(),
+                    format!("unreadable: {e}"),
+                ),
+            }
+        })
+        .collect();
+    for file in stopped {
+        let stem = file
+            .file_stem()
+            .map_or(String::new(), |s| s.to_string_lossy().into_owned());
+        match entries.iter_mut().find(|e| e.name == stem) {
+            Some(e) => {
+                e.note = Some(format!(
+                    "this run stopped with an input error; the report is the earlier one of {}",
+                    e.date
+                ))
+            }
+            None => entries.push(render::index::Entry::missing(
+                &stem,
+                &file.display().to_string(),
+                "input error: nothing was written (see the messages of the run)".into(),
+            )),
+        }
+    }
+    let path = dir.join("index.html");
+    let written = render::index::page(
+        &dir.display().to_string(),
+        &entries,
+        args.templates.as_deref(),
+    )
+    .map_err(|e| e.to_string())
+    .and_then(|page| write_page(&path, &page, render::PageKind::Index, args.force));
+    match written {
+        Ok(()) => {
+            say!("index: {}", path.display());
+            OK
+        }
+        Err(e) => {
+            eprintln!("error: index {}: {e}", path.display());
+            INPUT_ERROR
+        }
+    }
+}
+
+/// Writes a diff or index page atomically, unless `path` holds something else (a record, a
+/// report, a page of the user's own) and `force` is not given.
+fn write_page(path: &Path, page: &str, kind: render::PageKind, force: bool) -> Result<(), String> {
+    let ours = kind.may_replace(path).map_err(|e| e.to_string())?;
+    if !ours && !force {
+        return Err(format!(
+            "{} exists and is not a page Fieldbook wrote there; pass --force to replace it, or choose another name",
+            path.display()
+        ));
+    }
+    record::io::write_atomic(path, page.as_bytes()).map_err(|e| e.to_string())
 }
 
 /// Check (and, for `run` and `rerun`, execute) one run-file's text.

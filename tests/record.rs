@@ -61,6 +61,26 @@ struct Obs {
 struct Check {
     path: String,
     passed: bool,
+    got: f64,
+    bounds: Option<Bounds>,
+    selection: Option<Selection>,
+}
+#[derive(Deserialize)]
+struct Bounds {
+    lo: Option<f64>,
+    hi: Option<f64>,
+    near: Option<f64>,
+}
+#[derive(Deserialize)]
+struct Selection {
+    series: String,
+    reduce: Option<String>,
+    at: Vec<At>,
+}
+#[derive(Deserialize)]
+struct At {
+    axis: String,
+    value: f64,
 }
 #[derive(Deserialize)]
 struct Lineage {
@@ -119,6 +139,41 @@ fn records_are_deterministic_and_readable_with_independent_types() {
     );
     assert!(line.result.solver["method"].is_string());
     assert!(rec.checks.iter().all(|c| c.passed && !c.path.is_empty()));
+    // Each check carries its accepted range and what it selects, in numbers.
+    let tau = std::f64::consts::TAU;
+    for c in &rec.checks {
+        let b = c.bounds.as_ref().expect("bounds");
+        let (lo, hi) = (b.lo.unwrap(), b.hi.unwrap());
+        assert!(
+            lo <= c.got && c.got <= hi,
+            "{}: {lo} {} {hi}",
+            c.path,
+            c.got
+        );
+        assert!((b.near.unwrap() - (lo + hi) / 2.0).abs() <= 1e-9 * hi.abs().max(1.0));
+    }
+    let off = &rec.checks[1];
+    let sel = off.selection.as_ref().unwrap();
+    assert_eq!(sel.series, "line.final.population(e)");
+    assert_eq!(sel.reduce, None);
+    assert_eq!(sel.at.len(), 1);
+    assert_eq!(sel.at[0].axis, "delta");
+    assert!((sel.at[0].value - tau * 5.25e6).abs() < 1e-3);
+    let (near, hi) = (
+        off.bounds.as_ref().unwrap().near.unwrap(),
+        off.bounds.as_ref().unwrap().hi.unwrap(),
+    );
+    assert!((hi - near - 1e-9).abs() < 1e-15, "within 1e-9");
+    let scattering = rec.checks[2].selection.as_ref().unwrap();
+    assert_eq!(scattering.series, "line.final.scattering");
+    let peak = rec.checks[4].selection.as_ref().unwrap();
+    assert_eq!(peak.reduce.as_deref(), Some("argmax"));
+    assert!(peak.at.is_empty());
+    let width = rec.checks[4].bounds.as_ref().unwrap();
+    assert!(
+        (width.hi.unwrap() - tau).abs() < 1e-9,
+        "2π × 1 Hz, in rad/s"
+    );
 }
 
 #[test]
@@ -160,7 +215,7 @@ fn a_record_of_another_input_is_kept_unless_forced() {
         .unwrap()
         .map(|e| e.unwrap().file_name())
         .collect();
-    // The record and its report, and nothing else.
+    // The record, its report and the folder's index, and nothing else.
     let mut leftovers: Vec<String> = leftovers
         .iter()
         .map(|n| n.to_string_lossy().into_owned())
@@ -168,7 +223,7 @@ fn a_record_of_another_input_is_kept_unless_forced() {
     leftovers.sort();
     assert_eq!(
         leftovers,
-        ["line.html", "line.record.json"],
+        ["index.html", "line.html", "line.record.json"],
         "{leftovers:?}"
     );
 }
@@ -214,7 +269,11 @@ fn a_killed_run_leaves_the_previous_record_intact() {
         .map(|n| n.to_string_lossy().into_owned())
         .collect();
     names.sort();
-    assert_eq!(names, ["chevron.html", "chevron.record.json"], "{names:?}");
+    assert_eq!(
+        names,
+        ["chevron.html", "chevron.record.json", "index.html"],
+        "{names:?}"
+    );
 }
 
 /// `--csv` writes every plotted or tabulated series next to the record, with units in the

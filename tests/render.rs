@@ -55,11 +55,15 @@ fn reparsed(rec: &Record) -> Record {
     serde_json::from_str(&serde_json::to_string(rec).unwrap()).unwrap()
 }
 
-fn assert_self_contained(html: &str) {
-    let own = without_record(html);
+/// A page that names no outside address and runs no script.
+fn assert_nothing_outside(own: &str) {
     assert!(!own.contains("http://") && !own.contains("https://"));
     assert!(!own.contains("<script"), "a script besides the record");
     assert!(!own.contains("<link") && !own.contains("@import") && !own.contains("url("));
+}
+
+fn assert_self_contained(html: &str) {
+    assert_nothing_outside(&without_record(html));
     assert_eq!(html.matches("<script").count(), 1);
 }
 
@@ -349,6 +353,8 @@ fn large_record() -> Record {
             shown: "0.5000".into(),
             expected: "near 1 within 1e-6".into(),
             passed: false,
+            bounds: None,
+            selection: None,
         }],
         inline: vec![],
         warnings: vec![],
@@ -395,5 +401,206 @@ fn a_large_report_renders_fast_and_stays_small() {
     assert!(
         render::extract_record(&html).unwrap() == reparsed(&rec),
         "round trip"
+    );
+}
+
+/// The section of the block that starts at `line`.
+fn section(html: &str, line: usize) -> &str {
+    let start = html
+        .find(&format!("<section class=\"fb-block\" id=\"line-{line}\">"))
+        .unwrap_or_else(|| panic!("no block at line {line}"));
+    let end = start + html[start..].find("</section>").unwrap();
+    &html[start..end]
+}
+
+#[test]
+fn blocks_show_their_own_warnings_timings_and_checks() {
+    let dir = temp_dir("blocks");
+    let f = dir.join("line.md");
+    // A bare `MHz` Rabi frequency is warned about, at the light block.
+    let text = common::example("steady-state-line.md")
+        .replace("rabi     = \"rabi\"", "rabi     = \"38 MHz\"");
+    std::fs::write(&f, &text).unwrap();
+    let html = run(&f, &dir, None);
+    let rec = record::io::read(&dir.join("line.record.json")).unwrap();
+    let light_line = text
+        .lines()
+        .position(|l| l.starts_with("```light"))
+        .unwrap()
+        + 1;
+    assert_eq!(rec.warnings.len(), 1, "{:?}", rec.warnings);
+    assert_eq!(rec.warnings[0].line, light_line + 3);
+    let light = section(&html, light_line);
+    assert!(
+        light.contains("<ul class=\"fb-messages\"><li class=\"fb-warning\">"),
+        "{light}"
+    );
+    assert!(light.contains(&format!("line {}:", light_line + 3)));
+    // Only there: no other block lists it, and the banner links to the block.
+    assert_eq!(html.matches("class=\"fb-warning\"").count(), 1);
+    assert!(html.contains(&format!(
+        "<a href=\"#line-{light_line}\">line {}:",
+        light_line + 3
+    )));
+    // The evolve block names its own wall time.
+    let evolve_line = text
+        .lines()
+        .position(|l| l.starts_with("```evolve"))
+        .unwrap()
+        + 1;
+    let seconds = rec.volatile.timings[0].seconds;
+    let head = section(&html, evolve_line);
+    let shown =
+        fieldbook::notebook::expr::format_quantity(seconds, fieldbook::notebook::expr::Dim::TIME);
+    assert!(
+        head.contains(&format!(
+            "<b>evolve line</b> · line {evolve_line} · {shown}</p>"
+        )),
+        "{head}"
+    );
+    // The four checks of the plotted curve are drawn on it and listed under it; the check of
+    // the scattering rate, which is not plotted, is not.
+    let plot_line = text.lines().position(|l| l.starts_with("```plot")).unwrap() + 1;
+    let plot = section(&html, plot_line);
+    let g = &plot[plot
+        .find("<g class=\"fb-marks\"")
+        .expect("marks on the plot")..];
+    assert_eq!(g.matches("<text").count(), 4, "{g}");
+    assert_eq!(plot.matches("<li class=\"fb-").count(), 4);
+    assert!(!plot.contains("line.final.scattering"));
+    // Each listed as held or failed, as the record has it.
+    let drawn = rec.checks.iter().filter(|c| !c.path.contains("scattering"));
+    let held = drawn.filter(|c| c.passed).count();
+    assert_eq!(plot.matches("<li class=\"fb-held\"").count(), held);
+}
+
+#[test]
+fn a_rerun_says_what_it_was_derived_from() {
+    let dir = temp_dir("lineage");
+    let f = dir.join("line.md");
+    std::fs::write(&f, common::example("steady-state-line.md")).unwrap();
+    let first = run(&f, &dir, None);
+    assert!(
+        !first.contains("<p class=\"fb-lineage\">"),
+        "a first run has no parent"
+    );
+    let again = dir.join("again");
+    let o = bin()
+        .arg("rerun")
+        .arg(dir.join("line.record.json"))
+        .args(["--set", "rabi=2π × 9 MHz", "--out"])
+        .arg(&again)
+        .arg("--cache")
+        .arg(dir.join("cache"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", text(&o));
+    let parent = record::io::read(&dir.join("line.record.json")).unwrap();
+    let html = std::fs::read_to_string(again.join("line.html")).unwrap();
+    let short = &parent.lineage.results_sha256[..12];
+    assert!(
+        html.contains(&format!(
+            "Derived from <code title=\"{}\">{short}</code> with <code>rabi = 2π × 9 MHz</code>",
+            parent.lineage.results_sha256
+        )),
+        "{}",
+        without_record(&html)
+    );
+}
+
+#[test]
+fn run_out_writes_an_index_of_every_report_in_the_folder() {
+    let dir = temp_dir("index");
+    let out = dir.join("out");
+    let broken = dir.join("broken.md");
+    std::fs::write(&broken, "# Broken\n\n```params\nx = \"1 +\"\n```\n").unwrap();
+    let o = bin()
+        .arg("run")
+        .arg(example("steady-state-line"))
+        .arg(example("stirap"))
+        .arg(&broken)
+        .arg("--out")
+        .arg(&out)
+        .arg("--cache")
+        .arg(dir.join("cache"))
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    let index = std::fs::read_to_string(out.join("index.html")).unwrap();
+    assert_nothing_outside(&index);
+    for name in ["steady-state-line", "stirap"] {
+        let rec = record::io::read(&out.join(format!("{name}.record.json"))).unwrap();
+        let title = rec
+            .cells
+            .iter()
+            .find_map(|c| c.text.lines().find_map(|l| l.strip_prefix("# ")))
+            .unwrap();
+        assert!(
+            index.contains(&format!("<a href=\"{name}.html\">{title}</a>")),
+            "{name}: {index}"
+        );
+        assert!(index.contains(&format!("{} held", rec.checks.len())));
+    }
+    assert!(
+        index.contains("input error: nothing was written"),
+        "{index}"
+    );
+    assert!(!index.contains("href=\"broken.html\""));
+    assert!(index.contains("1 of 3 run-files need attention"));
+
+    // A later run of one file keeps the other rows: the index is the folder's.
+    let o = bin()
+        .arg("run")
+        .arg(example("landau-zener"))
+        .arg("--out")
+        .arg(&out)
+        .arg("--cache")
+        .arg(dir.join("cache"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", text(&o));
+    let index = std::fs::read_to_string(out.join("index.html")).unwrap();
+    for name in ["landau-zener", "steady-state-line", "stirap"] {
+        assert!(index.contains(&format!("href=\"{name}.html\"")), "{name}");
+    }
+    assert!(index.contains("3 run-files, every check held"), "{index}");
+
+    // An index.html that Fieldbook did not write is kept, unless forced.
+    let other = dir.join("site");
+    std::fs::create_dir_all(&other).unwrap();
+    std::fs::write(other.join("index.html"), "<h1>our group</h1>").unwrap();
+    let run_into = |extra: &[&str]| {
+        bin()
+            .arg("run")
+            .arg(example("landau-zener"))
+            .arg("--out")
+            .arg(&other)
+            .args(extra)
+            .arg("--cache")
+            .arg(dir.join("cache"))
+            .output()
+            .unwrap()
+    };
+    let o = run_into(&[]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(
+        text(&o).contains("not a page Fieldbook wrote"),
+        "{}",
+        text(&o)
+    );
+    assert_eq!(
+        std::fs::read_to_string(other.join("index.html")).unwrap(),
+        "<h1>our group</h1>"
+    );
+    assert!(
+        other.join("landau-zener.html").is_file(),
+        "the report is still written"
+    );
+    let o = run_into(&["--force"]);
+    assert!(o.status.success(), "{}", text(&o));
+    assert!(
+        std::fs::read_to_string(other.join("index.html"))
+            .unwrap()
+            .contains("landau-zener.html")
     );
 }

@@ -120,3 +120,204 @@ fn rerun_then_diff_shows_the_change_and_only_the_change() {
     assert_eq!(o.status.code(), Some(2));
     assert!(text(&o).contains("not a Fieldbook record"), "{}", text(&o));
 }
+
+/// Text as it appears in HTML.
+fn html_text(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+        .replace('"', "&quot;")
+        .replace('\'', "&#39;")
+}
+
+/// Runs `example` into `dir/a`, re-runs it with `set` into `dir/b`, and returns both records.
+fn two_versions(dir: &Path, example: &str, set: &str) -> (std::path::PathBuf, std::path::PathBuf) {
+    let f = dir.join(example);
+    std::fs::copy(
+        Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("notebooks-spec/examples")
+            .join(example),
+        &f,
+    )
+    .unwrap();
+    let o = bin()
+        .arg("run")
+        .arg(&f)
+        .arg("--out")
+        .arg(dir.join("a"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", text(&o));
+    let stem = f.file_stem().unwrap().to_string_lossy().into_owned();
+    let ra = dir.join("a").join(format!("{stem}.record.json"));
+    let o = bin()
+        .arg("rerun")
+        .arg(&ra)
+        .args(["--set", set, "--out"])
+        .arg(dir.join("b"))
+        .output()
+        .unwrap();
+    assert!(o.status.code().is_some_and(|c| c < 2), "{}", text(&o));
+    (ra, dir.join("b").join(format!("{stem}.html")))
+}
+
+#[test]
+fn the_diff_page_lists_every_change_and_overlays_the_curves() {
+    let dir = temp_dir("page");
+    let (ra, rb) = two_versions(&dir, "steady-state-line.md", "rabi=2π × 9 MHz");
+    let out = dir.join("diff.html");
+    // The new side is the HTML report: diff reads the record embedded in it.
+    let o = bin()
+        .arg("diff")
+        .arg(&ra)
+        .arg(&rb)
+        .arg("--html")
+        .arg(&out)
+        .output()
+        .unwrap();
+    let t = text(&o);
+    assert_eq!(o.status.code(), Some(1), "{t}");
+    assert!(t.contains(&format!("diff page: {}", out.display())), "{t}");
+    let page = std::fs::read_to_string(&out).unwrap();
+    // The count and every change the terminal shows.
+    let n: usize = t
+        .lines()
+        .find_map(|l| {
+            l.split(": ")
+                .last()?
+                .strip_suffix(" difference(s)")?
+                .parse()
+                .ok()
+        })
+        .expect("a count");
+    assert!(page.contains(&format!("{n} differences")), "{n}");
+    let listed: Vec<&str> = t.lines().filter(|l| l.starts_with("  ")).collect();
+    assert_eq!(listed.len(), n);
+    for l in listed {
+        let (subject, rest) = l.trim().split_once(": ").unwrap();
+        let shown = format!("<code>{}</code>: {}", html_text(subject), html_text(rest));
+        assert!(page.contains(&shown), "missing {shown}");
+    }
+    // A re-run says so, and the curve appears in both versions on one figure.
+    assert!(page.contains("is a re-run of the old one"));
+    assert_eq!(page.matches("<svg").count(), 1);
+    assert!(page.contains("line.final.population(e) · old"));
+    assert!(page.contains("line.final.population(e) · new"));
+    assert!(
+        page.contains("stroke-dasharray=\"7 5\""),
+        "the old curve is dashed"
+    );
+    assert!(!page.contains("<script") && !page.contains("http://") && !page.contains("https://"));
+    assert!(!page.contains("url("));
+
+    // Equal records: exit 0 and a page that says so; the page is replaced, being ours.
+    let o = bin()
+        .arg("diff")
+        .arg(&ra)
+        .arg(&ra)
+        .arg("--html")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    let page = std::fs::read_to_string(&out).unwrap();
+    assert!(page.contains("Equal: the records agree within tolerance"));
+    assert!(!page.contains("class=\"fb-changes\" id=\"parameter\""));
+
+    // Anything else at that path is kept: a record, or a page of one's own.
+    let before = std::fs::read(&ra).unwrap();
+    let o = bin()
+        .arg("diff")
+        .arg(&ra)
+        .arg(&rb)
+        .arg("--html")
+        .arg(&ra)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("--force"), "{}", text(&o));
+    assert_eq!(std::fs::read(&ra).unwrap(), before);
+    let mine = dir.join("mine.html");
+    std::fs::write(&mine, "<p>notes</p>").unwrap();
+    let o = bin()
+        .arg("diff")
+        .arg(&ra)
+        .arg(&rb)
+        .arg("--html")
+        .arg(&mine)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    assert_eq!(std::fs::read_to_string(&mine).unwrap(), "<p>notes</p>");
+    let o = bin()
+        .arg("diff")
+        .arg(&ra)
+        .arg(&rb)
+        .args(["--force", "--html"])
+        .arg(&mine)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1), "{}", text(&o));
+    assert!(
+        std::fs::read_to_string(&mine)
+            .unwrap()
+            .contains("differences")
+    );
+
+    // --html belongs to diff; a template folder replaces the page's layout.
+    let o = bin()
+        .arg("run")
+        .arg(&ra)
+        .arg("--html")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    let tpl = dir.join("tpl");
+    std::fs::create_dir_all(&tpl).unwrap();
+    std::fs::write(tpl.join("diff.html"), "<main>house diff {{summary}}</main>").unwrap();
+    let o = bin()
+        .arg("diff")
+        .arg(&ra)
+        .arg(&rb)
+        .arg("--html")
+        .arg(&out)
+        .arg("--templates")
+        .arg(&tpl)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    let page = std::fs::read_to_string(&out).unwrap();
+    assert!(
+        page.starts_with("<main>house diff <section class=\"fb-banner fb-failed\">"),
+        "{page}"
+    );
+}
+
+#[test]
+fn heat_maps_are_compared_side_by_side_and_by_their_difference() {
+    let dir = temp_dir("maps");
+    let (ra, rb) = two_versions(&dir, "rabi-chevron.md", "rabi=2π × 30 kHz");
+    let out = dir.join("maps.html");
+    let o = bin()
+        .arg("diff")
+        .arg(&ra)
+        .arg(&rb)
+        .arg("--html")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(1), "{}", text(&o));
+    let page = std::fs::read_to_string(&out).unwrap();
+    assert_eq!(
+        page.matches("<svg").count(),
+        3,
+        "old, new and their difference"
+    );
+    assert!(page.contains("Transfer versus detuning and pulse length (old)"));
+    assert!(page.contains("Transfer versus detuning and pulse length (new)"));
+    assert!(page.contains("Transfer versus detuning and pulse length: new − old"));
+    // A check that flipped is named with both outcomes, and a moved value with its change.
+    assert!(page.contains("held → FAILED"), "a check that failed");
+    assert!(page.contains(" %)"), "a relative change");
+}

@@ -98,6 +98,22 @@ fn interp(x: &[f64], y: &[f64], t: f64) -> Option<f64> {
     Some(y[k] + (y[k + 1] - y[k]) * (t - x0) / (x1 - x0))
 }
 
+/// The relative change from `a` to `b` in words, e.g. ` (+12.5 %)`, or nothing when `a` is
+/// zero or either is not finite.
+fn relative(a: f64, b: f64) -> String {
+    let r = (b - a) / a.abs();
+    if a == 0.0 || !r.is_finite() {
+        return String::new();
+    }
+    let percent = 100.0 * r;
+    match percent.abs() {
+        p if p >= 100.0 => format!(" ({percent:+.0} %)"),
+        p if p >= 10.0 => format!(" ({percent:+.1} %)"),
+        p if p >= 0.1 => format!(" ({percent:+.2} %)"),
+        _ => format!(" (relative change {r:+.2e})"),
+    }
+}
+
 fn compare_results(
     name: &str,
     a: &EvolveResult,
@@ -167,10 +183,11 @@ fn compare_results(
         if worst > 0.0 {
             let what = if pairs.len() == 1 {
                 format!(
-                    "{name}.final.{}: {} → {}",
+                    "{name}.final.{}: {} → {}{}",
                     oa.label,
                     format_quantity(pairs[0].0, dim),
-                    format_quantity(pairs[0].1, dim)
+                    format_quantity(pairs[0].1, dim),
+                    relative(pairs[0].0, pairs[0].1)
                 )
             } else {
                 format!(
@@ -272,7 +289,13 @@ pub fn diff(a: &Record, b: &Record, tol: Tolerance) -> Vec<Change> {
                 } else if !tol.same(ca.got, cb.got) {
                     out.push(change(
                         "check",
-                        format!("{}: {} → {}", ca.path, ca.shown, cb.shown),
+                        format!(
+                            "{}: {} → {}{}",
+                            ca.path,
+                            ca.shown,
+                            cb.shown,
+                            relative(ca.got, cb.got)
+                        ),
                     ));
                 }
             }
@@ -349,6 +372,16 @@ mod tests {
         assert_eq!(interp(&x, &y, 0.5), Some(5.0));
         assert_eq!(interp(&x, &y, 1.5), Some(5.0));
         assert_eq!(interp(&x, &y, 2.5), None);
+    }
+
+    #[test]
+    fn relative_changes_read_as_percentages() {
+        assert_eq!(relative(2.0, 3.0), " (+50.0 %)");
+        assert_eq!(relative(-2.0, -3.0), " (-50.0 %)");
+        assert_eq!(relative(1.0, 1.002), " (+0.20 %)");
+        assert_eq!(relative(1.0, 1.0 + 2e-7), " (relative change +2.00e-7)");
+        assert_eq!(relative(1.0, 5.0), " (+400 %)");
+        assert_eq!(relative(0.0, 1.0), "");
     }
 
     #[test]

@@ -10,11 +10,15 @@ pub mod io;
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
+use crate::kernel::build::Values;
 use crate::kernel::results::{EvolveResult, PathValue};
 use crate::kernel::session::{Checked, Output, RunOutcome};
 use crate::notebook::Document;
+use crate::notebook::blocks::{Block, Condition, Ex, Tol};
 use crate::notebook::diag::{Diagnostic, Severity};
-use crate::notebook::expr::format_quantity;
+use crate::notebook::expr::{self, format_quantity};
+use crate::notebook::path::{Reduce, ResultPath, Target};
+use crate::notebook::source::Span;
 
 /// The `format` field of every record.
 pub const FORMAT: &str = "fieldbook-record";
@@ -179,6 +183,46 @@ pub struct CheckRecord {
     pub expected: String,
     /// Whether it held.
     pub passed: bool,
+    /// The accepted values as numbers; `None` in records written before this field existed.
+    #[serde(default)]
+    pub bounds: Option<Bounds>,
+    /// What the path reads, for drawing the check on a plot of that series; `None` for checks
+    /// of a time or axis value, and in records written before this field existed.
+    #[serde(default)]
+    pub selection: Option<Selection>,
+}
+
+/// The values a check accepts, SI, in the dimension of the checked value: `lo ≤ got ≤ hi`,
+/// either side open when `None`; `near` is the value a `near` condition aims at.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Bounds {
+    /// Lower bound.
+    pub lo: Option<f64>,
+    /// Upper bound.
+    pub hi: Option<f64>,
+    /// The value aimed at by `near`.
+    pub near: Option<f64>,
+}
+
+/// A checked path taken apart: the series it reads, then a reduction or point selections.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Selection {
+    /// The series before selection and reduction, in canonical form, e.g.
+    /// `line.final.population(e)` or `run.trace.bloch(g, e).w` (see [`series_key`]).
+    pub series: String,
+    /// `max`, `min`, `argmax` or `argmin`.
+    pub reduce: Option<String>,
+    /// The `at` selections with their values evaluated.
+    pub at: Vec<AtValue>,
+}
+
+/// One `at AXIS = VALUE` selection.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct AtValue {
+    /// The axis (`time` for a trace).
+    pub axis: String,
+    /// The selected coordinate (SI).
+    pub value: f64,
 }
 
 /// One inline value.
@@ -239,6 +283,109 @@ pub struct Timing {
     pub seconds: f64,
     /// Served from the cache.
     pub cached: bool,
+}
+
+/// The canonical text of the series a path reads, without reduction or selections:
+/// `BLOCK.final.OBS[.COMP]` or `BLOCK.trace.OBS[.COMP]` with the observable as `observe` lists
+/// it; `None` for a time or axis path. Checks and plot curves are matched by this key.
+pub fn series_key(path: &ResultPath) -> Option<String> {
+    let (part, obs, comp) = match &path.target {
+        Target::Final(o, c) => ("final", o, c),
+        Target::Trace(o, c) => ("trace", o, c),
+        Target::Time | Target::Axis(_) => return None,
+    };
+    let comp = comp.as_ref().map_or(String::new(), |c| format!(".{c}"));
+    Some(format!("{}.{part}.{}{comp}", path.block, obs.canonical()))
+}
+
+/// A finite value, else `None` (JSON has no NaN or infinity).
+fn finite(x: f64) -> Option<f64> {
+    x.is_finite().then_some(x)
+}
+
+/// The bounds a condition puts on the checked value, evaluated as the check was.
+fn bounds(condition: &Condition, values: &Values) -> Bounds {
+    let val = |ex: &Ex| ex.expr.eval(values).ok().and_then(|q| finite(q.value));
+    match condition {
+        Condition::Near(v, tol) => {
+            let near = val(v);
+            let width = match tol {
+                Tol::Abs(t) => val(t),
+                Tol::Rel(r) => near.map(|v| r * v.abs()),
+            };
+            let (lo, hi) = match (near, width) {
+                (Some(v), Some(w)) => (Some(v - w), Some(v + w)),
+                _ => (None, None),
+            };
+            Bounds { lo, hi, near }
+        }
+        Condition::Below(b) => Bounds {
+            lo: None,
+            hi: val(b),
+            near: None,
+        },
+        Condition::Above(a) => Bounds {
+            lo: val(a),
+            hi: None,
+            near: None,
+        },
+        Condition::Between(a, b) => Bounds {
+            lo: val(a),
+            hi: val(b),
+            near: None,
+        },
+    }
+}
+
+/// The selection of a checked path, with its `at` values evaluated; `None` when the path reads
+/// no series or a value cannot be evaluated.
+fn selection(path: &ResultPath, values: &Values) -> Option<Selection> {
+    let at = path
+        .at
+        .iter()
+        .map(|(axis, _, text, _)| {
+            let value = expr::parse(text).ok()?.eval(values).ok()?.value;
+            Some(AtValue {
+                axis: axis.clone(),
+                value: finite(value)?,
+            })
+        })
+        .collect::<Option<Vec<_>>>()?;
+    let reduce = path.reduce.map(|r| {
+        match r {
+            Reduce::Max => "max",
+            Reduce::Min => "min",
+            Reduce::ArgMax => "argmax",
+            Reduce::ArgMin => "argmin",
+        }
+        .to_string()
+    });
+    Some(Selection {
+        series: series_key(path)?,
+        reduce,
+        at,
+    })
+}
+
+/// Bounds and selection of the check whose path sits at `span`.
+fn check_detail(
+    doc: &Document,
+    values: &Values,
+    span: &Span,
+) -> (Option<Bounds>, Option<Selection>) {
+    doc.blocks()
+        .filter_map(|b| match &b.block {
+            Some(Block::Check(k)) => Some(k),
+            _ => None,
+        })
+        .flat_map(|k| &k.items)
+        .find(|item| item.path.span == *span)
+        .map_or((None, None), |item| {
+            (
+                Some(bounds(&item.condition, values)),
+                selection(&item.path.path, values),
+            )
+        })
 }
 
 fn hex(bytes: &[u8]) -> String {
@@ -476,14 +623,19 @@ pub fn build(
                     cached: *cached,
                 });
             }
-            Output::Checks(cs) => checks.extend(cs.iter().map(|c| CheckRecord {
-                path: c.path.clone(),
-                line: doc.source.line_col(c.span.start).0,
-                got: c.got,
-                dim: c.dim.0,
-                shown: format_quantity(c.got, c.dim),
-                expected: c.expected.clone(),
-                passed: c.passed,
+            Output::Checks(cs) => checks.extend(cs.iter().map(|c| {
+                let (bounds, selection) = check_detail(doc, &checked.values, &c.span);
+                CheckRecord {
+                    path: c.path.clone(),
+                    line: doc.source.line_col(c.span.start).0,
+                    got: c.got,
+                    dim: c.dim.0,
+                    shown: format_quantity(c.got, c.dim),
+                    expected: c.expected.clone(),
+                    passed: c.passed,
+                    bounds,
+                    selection,
+                }
             })),
             Output::Plot { .. } | Output::Table { .. } => {}
         }
@@ -587,6 +739,29 @@ pub fn iso8601(secs: i64) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn checks_written_before_bounds_existed_still_read() {
+        let old = r#"{"path": "a.final.norm", "line": 3, "got": 1.0, "dim": [0, 0, 0, 0, 0],
+            "shown": "1.000", "expected": "≥ 0.9", "passed": true}"#;
+        let c: CheckRecord = serde_json::from_str(old).unwrap();
+        assert_eq!((c.bounds, c.selection), (None, None));
+    }
+
+    #[test]
+    fn series_keys_are_canonical() {
+        let key = |p: &str| series_key(&crate::notebook::path::parse_path(p).unwrap());
+        assert_eq!(
+            key("max( run.trace.population(g,r) ) at x = 1").as_deref(),
+            Some("run.trace.population(g, r)")
+        );
+        assert_eq!(
+            key("s.final.bloch(g, e).w").as_deref(),
+            Some("s.final.bloch(g, e).w")
+        );
+        assert_eq!(key("run.time"), None);
+        assert_eq!(key("s.delta"), None);
+    }
 
     #[test]
     fn utc_dates_follow_the_civil_calendar() {

@@ -2,6 +2,8 @@
 //! one path. The page is self-contained: style inlined, figures as inline SVG, math as MathML,
 //! no script but the embedded record (JSON, read back by [`extract_record`]), nothing fetched.
 
+pub mod diff;
+pub mod index;
 mod plot;
 mod prose;
 mod units;
@@ -12,7 +14,10 @@ use std::path::{Path, PathBuf};
 pub use plot::PlotError;
 
 use crate::notebook::expr::{Dim, format_quantity};
-use crate::record::{CellOutput, CellRecord, Column, FORMAT, Record, VERSION};
+use crate::notebook::path::{Target, parse_path};
+use crate::record::{
+    CellOutput, CellRecord, CheckRecord, Column, FORMAT, Record, VERSION, series_key,
+};
 
 /// The page template built in; a `report.html` in the `templates` folder replaces it.
 const TEMPLATE: &str = include_str!("../../templates/report.html");
@@ -51,6 +56,38 @@ pub enum RenderError {
     /// The embedded record is not one this build reads.
     #[error("the embedded record cannot be read: {0}")]
     BadRecord(String),
+}
+
+/// The pages written beside records that a later run may replace without asking: each ends
+/// with its kind's mark, and any other file at their path is left alone unless forced.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum PageKind {
+    /// A diff page (`fieldbook diff --html`).
+    Diff,
+    /// The index of a folder of reports (`fieldbook run --out`).
+    Index,
+}
+
+impl PageKind {
+    /// The comment that ends every page of this kind.
+    fn mark(self) -> &'static str {
+        match self {
+            PageKind::Diff => "\n<!-- fieldbook diff page -->\n",
+            PageKind::Index => "\n<!-- fieldbook index page -->\n",
+        }
+    }
+
+    /// Whether a page of this kind may be written to `path`: nothing is there, or a page of
+    /// the same kind.
+    pub fn may_replace(self, path: &Path) -> std::io::Result<bool> {
+        match std::fs::read(path) {
+            Ok(bytes) => Ok(bytes
+                .trim_ascii_end()
+                .ends_with(self.mark().trim().as_bytes())),
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(true),
+            Err(e) => Err(e),
+        }
+    }
 }
 
 /// Text or attribute value made safe for HTML.
@@ -176,6 +213,10 @@ pub fn report(record: &Record, templates: Option<&Path>) -> Result<String, Rende
                 &record.inline,
                 &clean,
             ));
+            let list = messages(record, cell);
+            if !list.is_empty() {
+                let _ = write!(body, "<div id=\"line-{}\">{list}</div>", cell.line);
+            }
             body.push('\n');
         } else {
             block(&mut body, record, cell)?;
@@ -184,6 +225,7 @@ pub fn report(record: &Record, templates: Option<&Path>) -> Result<String, Rende
     let title = escape(&title(record));
     let name = escape(&record.name);
     let banner = banner(record);
+    let lineage = lineage(record);
     let provenance = provenance(record);
     let json = embedded(record)?;
     let (mut page, record_used) = fill(
@@ -193,6 +235,7 @@ pub fn report(record: &Record, templates: Option<&Path>) -> Result<String, Rende
             ("name", &name),
             ("style", &style),
             ("banner", &banner),
+            ("lineage", &lineage),
             ("body", &body),
             ("provenance", &provenance),
             ("record", &json),
@@ -258,18 +301,170 @@ fn banner(record: &Record) -> String {
         .map(|m| ("error", m))
         .chain(record.warnings.iter().map(|m| ("warning", m)))
         .map(|(kind, m)| {
-            format!(
-                "<li>{kind}, line {}:{}: {}</li>",
-                m.line,
-                m.column,
-                escape(&m.message)
-            )
+            let place = format!("line {}:{}", m.line, m.column);
+            let place = match record
+                .cells
+                .iter()
+                .find(|c| cell_lines(c).contains(&m.line))
+            {
+                Some(c) => format!("<a href=\"#line-{}\">{place}</a>", c.line),
+                None => place,
+            };
+            format!("<li>{kind}, {place}: {}</li>", escape(&m.message))
         })
         .collect();
     if !messages.is_empty() {
         let _ = write!(out, "<ul>{}</ul>", messages.concat());
     }
     out.push_str("</section>");
+    out
+}
+
+/// "Derived from" a parent record, for a re-run: the parent's short hash and the changes.
+fn lineage(record: &Record) -> String {
+    let Some(parent) = &record.lineage.parent else {
+        return String::new();
+    };
+    let short: String = parent.chars().take(12).collect();
+    format!(
+        "<p class=\"fb-lineage\">Derived from <code title=\"{}\">{}</code> with {}</p>",
+        escape(parent),
+        escape(&short),
+        lineage_changes(record)
+    )
+}
+
+/// The parameters a re-run changed, as HTML: `<code>rabi = …</code>, …`.
+fn lineage_changes(record: &Record) -> String {
+    if record.lineage.changes.is_empty() {
+        return "no parameter changes".to_string();
+    }
+    record
+        .lineage
+        .changes
+        .iter()
+        .map(|c| format!("<code>{}</code>", escape(c)))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The source lines a cell spans.
+fn cell_lines(cell: &CellRecord) -> std::ops::Range<usize> {
+    cell.line..cell.line + cell.text.lines().count().max(1)
+}
+
+/// The runtime errors and warnings located in `cell`, as a list (empty when there are none).
+fn messages(record: &Record, cell: &CellRecord) -> String {
+    let lines = cell_lines(cell);
+    let items: Vec<String> = record
+        .errors
+        .iter()
+        .map(|m| ("error", m))
+        .chain(record.warnings.iter().map(|m| ("warning", m)))
+        .filter(|(_, m)| lines.contains(&m.line))
+        .map(|(kind, m)| {
+            format!(
+                "<li class=\"fb-{kind}\"><b>{kind}</b>, line {}:{}: {}</li>",
+                m.line,
+                m.column,
+                escape(&m.message)
+            )
+        })
+        .collect();
+    if items.is_empty() {
+        String::new()
+    } else {
+        format!("<ul class=\"fb-messages\">{}</ul>", items.concat())
+    }
+}
+
+/// How long an evolve block took, for its heading: ` · 12.30 ms` or ` · from the cache`.
+fn timing(record: &Record, cell: &CellRecord) -> String {
+    let found = record
+        .volatile
+        .timings
+        .iter()
+        .find(|t| cell.kind == "evolve" && cell.name.as_deref() == Some(t.block.as_str()));
+    match found {
+        Some(t) if t.cached => " · from the cache".to_string(),
+        Some(t) => format!(" · {}", escape(&format_quantity(t.seconds, Dim::TIME))),
+        None => String::new(),
+    }
+}
+
+/// The checks of `record` that can be drawn on a line plot of `curves` over `x`, numbered from
+/// 1: a check of a value at one x, of a curve's extremum, or of where it lies. A curve is
+/// matched by its series (a curve drawn with its own `at` or reduction is not), and `x` must be
+/// the axis (or time) of the same block.
+fn plot_marks<'r>(
+    record: &'r Record,
+    x: &Column,
+    curves: &[Column],
+) -> Vec<(plot::Mark, &'r CheckRecord)> {
+    let Ok(xp) = parse_path(&x.label) else {
+        return vec![];
+    };
+    let axis = match &xp.target {
+        Target::Axis(a) => a.as_str(),
+        Target::Time => "time",
+        _ => return vec![],
+    };
+    let plotted: Vec<String> = curves
+        .iter()
+        .filter_map(|c| parse_path(&c.label).ok())
+        .filter(|p| p.block == xp.block && p.reduce.is_none() && p.at.is_empty())
+        .filter_map(|p| series_key(&p))
+        .collect();
+    let mut out = Vec::new();
+    for c in &record.checks {
+        let (Some(sel), Some(b)) = (&c.selection, &c.bounds) else {
+            continue;
+        };
+        if !plotted.contains(&sel.series) {
+            continue;
+        }
+        let place = match (sel.reduce.as_deref(), sel.at.as_slice()) {
+            (None, [at]) if at.axis == axis => plot::Place::At(at.value),
+            (Some("max" | "min"), []) => plot::Place::Level,
+            (Some("argmax" | "argmin"), []) => plot::Place::Position,
+            _ => continue,
+        };
+        let mark = plot::Mark {
+            number: out.len() + 1,
+            place,
+            lo: b.lo,
+            hi: b.hi,
+            near: b.near,
+            passed: c.passed,
+        };
+        out.push((mark, c));
+    }
+    out
+}
+
+/// The caption under a plot that lists the checks drawn on it.
+fn marks_caption(marks: &[(plot::Mark, &CheckRecord)]) -> String {
+    if marks.is_empty() {
+        return String::new();
+    }
+    let mut out = String::from("<figcaption class=\"fb-marks\">Checks drawn on this plot:<ol>");
+    for (m, c) in marks {
+        let (class, word) = if c.passed {
+            ("fb-held", "held")
+        } else {
+            ("fb-failed", "FAILED")
+        };
+        let _ = write!(
+            out,
+            "<li class=\"{class}\" value=\"{}\"><code>{}</code> (line {}): expected {}, got {}, <b>{word}</b></li>",
+            m.number,
+            escape(&c.path),
+            c.line,
+            escape(&c.expected),
+            escape(&c.shown)
+        );
+    }
+    out.push_str("</ol></figcaption>");
     out
 }
 
@@ -281,11 +476,13 @@ fn block(out: &mut String, record: &Record, cell: &CellRecord) -> Result<(), Ren
         .map_or(String::new(), |n| format!(" {}", escape(n)));
     let _ = write!(
         out,
-        "<section class=\"fb-block\"><p class=\"fb-block-head\"><b>{}{name}</b> · line {}</p>\
-         <details class=\"fb-source\"><summary>Source</summary><pre><code>{}</code></pre></details>",
+        "<section class=\"fb-block\" id=\"line-{line}\"><p class=\"fb-block-head\"><b>{}{name}</b> · line {line}{}</p>\
+         <details class=\"fb-source\"><summary>Source</summary><pre><code>{}</code></pre></details>{}",
         escape(&cell.kind),
-        cell.line,
-        escape(&cell.text)
+        timing(record, cell),
+        escape(&cell.text),
+        messages(record, cell),
+        line = cell.line,
     );
     let figure = |r: Result<String, PlotError>| {
         r.map_err(|source| RenderError::Figure {
@@ -302,11 +499,17 @@ fn block(out: &mut String, record: &Record, cell: &CellRecord) -> Result<(), Ren
             log_x,
             log_y,
         }) => {
-            let svg = figure(plot::curves(title, x, curves, *log_x, *log_y))?;
-            let _ = write!(out, "<figure class=\"fb-figure\">{svg}</figure>");
+            let marks = plot_marks(record, x, curves);
+            let drawn: Vec<plot::Mark> = marks.iter().map(|(m, _)| m.clone()).collect();
+            let svg = figure(plot::curves(title, x, curves, *log_x, *log_y, &drawn))?;
+            let _ = write!(
+                out,
+                "<figure class=\"fb-figure\">{svg}{}</figure>",
+                marks_caption(&marks)
+            );
         }
         Some(CellOutput::Map { title, x, y, z }) => {
-            let svg = figure(plot::heat_map(title, x, y, z))?;
+            let svg = figure(plot::heat_map(title, x, y, z, plot::MapStyle::default()))?;
             let _ = write!(out, "<figure class=\"fb-figure fb-map\">{svg}</figure>");
         }
         Some(CellOutput::Table { title, columns }) => table(out, title.as_deref(), columns),
