@@ -340,7 +340,7 @@ fn pages_render_in_a_browser_without_errors_or_requests() {
     std::fs::write(&math, with_math()).unwrap();
     let mut run = bin();
     run.arg("run");
-    for name in ["rabi-chevron", "stirap", "ramsey-light-shift"] {
+    for name in ["rabi-chevron", "stirap", "ramsey-light-shift", "zeeman-raman"] {
         run.arg(example_path(&format!("{name}.md")));
     }
     let o = run
@@ -382,6 +382,7 @@ fn pages_render_in_a_browser_without_errors_or_requests() {
         ("rabi-chevron", 1),
         ("stirap", 1),
         ("ramsey-light-shift", 1),
+        ("zeeman-raman", 3),
         ("math", 1),
         ("index", 0),
         ("diff-math", 1),
