@@ -340,7 +340,12 @@ fn pages_render_in_a_browser_without_errors_or_requests() {
     std::fs::write(&math, with_math()).unwrap();
     let mut run = bin();
     run.arg("run");
-    for name in ["rabi-chevron", "stirap", "ramsey-light-shift", "zeeman-raman"] {
+    for name in [
+        "rabi-chevron",
+        "stirap",
+        "ramsey-light-shift",
+        "zeeman-raman",
+    ] {
         run.arg(example_path(&format!("{name}.md")));
     }
     let o = run
