@@ -473,6 +473,21 @@ impl Field {
         Ok(w)
     }
 
+    /// ⟨u|d·ε|l⟩ on the reference transition of a Rabi frequency or saturation parameter;
+    /// fails when the polarisation does not drive it.
+    fn reference_coupling(&self, atom: &Atom, transition: TransitionId) -> Result<C64, Error> {
+        let a = self
+            .polarization
+            .absorbing(&atom.transition(transition)?.dipole());
+        if a.norm() == 0.0 {
+            return Err(Error::ReferenceNotDriven {
+                field: self.name.clone(),
+                transition: atom.transition_label(transition),
+            });
+        }
+        Ok(a)
+    }
+
     /// The complex field factor F (rad/s per C·m): the Rabi frequency on any transition is
     /// Ω = F·⟨u|d·ε|l⟩ (co-rotating) and Ω_cr = F*·⟨u|d·ε*|l⟩ (counter-rotating). For a field
     /// given by E₀, F = −E₀/ħ (so Ω = −⟨d·E₀⟩/ħ); for a Rabi frequency, F carries the reference
@@ -501,27 +516,13 @@ impl Field {
         match &self.strength {
             Strength::Rabi { transition, rabi } => {
                 let rabi = check("Rabi frequency", *rabi)?;
-                let tr = atom.transition(*transition)?;
-                let a = self.polarization.absorbing(&tr.dipole());
-                if a.norm() == 0.0 {
-                    return Err(Error::ReferenceNotDriven {
-                        field: self.name.clone(),
-                        transition: atom.transition_label(*transition),
-                    });
-                }
-                Ok(rabi / a)
+                Ok(rabi / self.reference_coupling(atom, *transition)?)
             }
             Strength::Saturation { transition, s } => {
                 let s = check("saturation parameter", *s)?;
-                let tr = atom.transition(*transition)?;
-                let a = self.polarization.absorbing(&tr.dipole());
-                if a.norm() == 0.0 {
-                    return Err(Error::ReferenceNotDriven {
-                        field: self.name.clone(),
-                        transition: atom.transition_label(*transition),
-                    });
-                }
-                let gamma = atom.total_decay_rates()[tr.upper()];
+                let a = self.reference_coupling(atom, *transition)?;
+                let upper = atom.transition(*transition)?.upper();
+                let gamma = atom.total_decay_rates()[upper];
                 if gamma <= 0.0 {
                     return Err(Error::OutOfRange {
                         what: format!(

@@ -700,14 +700,28 @@ impl<'a> Reader<'a> {
     }
 
     fn name(&mut self, key: &str, node: &Node) -> Option<Name> {
+        self.checked_name(
+            key,
+            node,
+            is_name,
+            "name",
+            "names start with a letter and hold letters, digits, `_` and `-`",
+        )
+    }
+
+    /// The trimmed string at `node` if `valid` accepts it, else an error naming `what`.
+    fn checked_name(
+        &mut self,
+        key: &str,
+        node: &Node,
+        valid: fn(&str) -> bool,
+        what: &str,
+        hint: &str,
+    ) -> Option<Name> {
         let (s, span) = self.string(key, node)?;
         let trimmed = s.trim();
-        if !is_name(trimmed) {
-            self.error(
-                span,
-                format!("`{s}` is not a valid name"),
-                "names start with a letter and hold letters, digits, `_` and `-`",
-            );
+        if !valid(trimmed) {
+            self.error(span, format!("`{s}` is not a valid {what}"), hint);
             return None;
         }
         Some(Name {
@@ -722,20 +736,13 @@ impl<'a> Reader<'a> {
 
     /// A level name, which on a Zeeman atom may hold fractions (`g3/2_m1/2`).
     fn level_name(&mut self, key: &str, node: &Node) -> Option<Name> {
-        let (s, span) = self.string(key, node)?;
-        let trimmed = s.trim();
-        if !is_level_name(trimmed) {
-            self.error(
-                span,
-                format!("`{s}` is not a valid level name"),
-                "level names start with a letter and hold letters, digits, `_`, `-`, and `/` between digits",
-            );
-            return None;
-        }
-        Some(Name {
-            name: trimmed.to_string(),
-            span,
-        })
+        self.checked_name(
+            key,
+            node,
+            is_level_name,
+            "level name",
+            "level names start with a letter and hold letters, digits, `_`, `-`, and `/` between digits",
+        )
     }
 
     /// A non-negative whole or half-integer (a number or a string such as `"3/2"`), doubled.
