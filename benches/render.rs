@@ -13,6 +13,7 @@ use fieldbook::record::{
 fn column(label: &str, dim: [i8; 5], values: Vec<f64>) -> Column {
     Column {
         label: label.into(),
+        title: None,
         dim,
         values,
     }
@@ -66,6 +67,7 @@ fn record() -> Record {
             })
             .collect();
         let output = CellOutput::Curves {
+            y_title: None,
             title: format!("plot {p}"),
             x: column("time", time, t.clone()),
             curves,

@@ -107,8 +107,8 @@ fn example_reports_are_self_contained_and_embed_their_record() {
     }
     let chevron = std::fs::read_to_string(dir.join("rabi-chevron.html")).unwrap();
     assert!(chevron.contains("fb-figure fb-map"));
-    assert!(chevron.contains("delta/2π (kHz)"), "frequency axis in kHz");
-    assert!(chevron.contains("len (µs)"), "time axis in µs");
+    assert!(chevron.contains("detuning Δ/2π (kHz)"), "frequency axis in kHz");
+    assert!(chevron.contains("pulse length (µs)"), "time axis in µs");
     assert!(chevron.contains("All 3 checks held"));
 }
 
@@ -210,6 +210,7 @@ fn a_templates_folder_replaces_the_built_in_files() {
 fn column(label: &str, dim: [i8; 5], values: Vec<f64>) -> Column {
     Column {
         label: label.into(),
+        title: None,
         dim,
         values,
     }
@@ -276,6 +277,7 @@ fn large_record() -> Record {
             line: 10 + p,
             text: "```plot\n```".into(),
             output: Some(CellOutput::Curves {
+                y_title: None,
                 title: format!("plot {p}"),
                 x: column("time", time, t.clone()),
                 curves,
@@ -602,5 +604,61 @@ fn run_out_writes_an_index_of_every_report_in_the_folder() {
         std::fs::read_to_string(other.join("index.html"))
             .unwrap()
             .contains("landau-zener.html")
+    );
+}
+
+/// Axes and legends read as quantities, not internal paths: names given in the plot block
+/// (`xlabel`, `ylabel`, `labels`) with the unit added, else the paths shortened (no block, no
+/// `final`), with the block named only when curves come from several.
+#[test]
+fn plots_name_their_axes_and_curves_for_a_reader() {
+    let dir = temp_dir("names");
+    let f = dir.join("names.md");
+    let body = common::example("steady-state-line.md").replace(
+        "title = \"Steady-state excited population across the line\"",
+        "title = \"Steady-state excited population across the line\"\nxlabel = \"probe detuning Δ\"\nylabel = \"excited population\"\nlabels = [\"ρ_ee\"]",
+    );
+    assert!(body.contains("xlabel"), "the example's plot block changed");
+    std::fs::write(&f, body).unwrap();
+    let html = run(&f, &dir, None);
+    assert!(html.contains("probe detuning Δ/2π (MHz)"), "x axis");
+    assert!(html.contains("excited population"), "y axis");
+    let rec = record::io::read(&dir.join("names.record.json")).unwrap();
+    let Some(CellOutput::Curves {
+        x, curves, y_title, ..
+    }) = rec.cells.iter().find_map(|c| {
+        c.output
+            .clone()
+            .filter(|o| matches!(o, CellOutput::Curves { .. }))
+    })
+    else {
+        panic!("no curves");
+    };
+    assert_eq!(x.label, "line.delta", "the path stays for machines");
+    assert_eq!(x.title.as_deref(), Some("probe detuning Δ"));
+    assert_eq!(curves[0].title.as_deref(), Some("ρ_ee"));
+    assert_eq!(y_title.as_deref(), Some("excited population"));
+
+    // Without names: shortened paths, the quantity on the y axis, blocks named when mixed.
+    let bare: String = common::example("dark-state-impurity.md")
+        .lines()
+        .filter(|l| {
+            !l.starts_with("xlabel") && !l.starts_with("ylabel") && !l.starts_with("labels")
+        })
+        .map(|l| format!("{l}\n"))
+        .collect();
+    let f = dir.join("dark.md");
+    std::fs::write(&f, bare).unwrap();
+    let html = run(&f, &dir.join("dark"), None);
+    assert!(html.contains("theta"), "x axis from the sweep axis");
+    assert!(
+        !html.contains("nofield.theta/"),
+        "no block prefix on the x axis"
+    );
+    assert!(html.contains("nofield: population(g1_m0)"));
+    assert!(html.contains("infield: population(g1_m0) at bias = 100 mG"));
+    assert!(
+        html.contains(">population<") || html.contains("population\n</text>"),
+        "y axis is the quantity"
     );
 }

@@ -201,8 +201,8 @@ fn the_diff_page_lists_every_change_and_overlays_the_curves() {
     // A re-run says so, and the curve appears in both versions on one figure.
     assert!(page.contains("is a re-run of the old one"));
     assert_eq!(page.matches("<svg").count(), 1);
-    assert!(page.contains("line.final.population(e) · old"));
-    assert!(page.contains("line.final.population(e) · new"));
+    assert!(page.contains("population(e) · old"));
+    assert!(page.contains("population(e) · new"));
     assert!(
         page.contains("stroke-dasharray=\"7 5\""),
         "the old curve is dashed"

@@ -387,6 +387,30 @@ fn shape_exprs(s: &crate::notebook::blocks::ShapeDef) -> Vec<&Ex> {
     }
 }
 
+/// The names a plot shows for its x, y… and z paths: those given in the block (`xlabel`,
+/// `labels`, `ylabel` of a heat map's vertical axis, `zlabel`), else the paths shortened, with
+/// their block named when the curves come from several.
+fn plot_names(p: &crate::notebook::blocks::PlotBlock) -> Vec<String> {
+    let several = p.y.iter().any(|y| y.path.block != p.y[0].path.block);
+    let mut out = vec![
+        p.xlabel
+            .clone()
+            .unwrap_or_else(|| p.x.path.short_name(false)),
+    ];
+    for (k, y) in p.y.iter().enumerate() {
+        let given = if p.z.is_some() {
+            p.ylabel.clone()
+        } else {
+            p.labels.get(k).cloned()
+        };
+        out.push(given.unwrap_or_else(|| y.path.short_name(several && p.z.is_none())));
+    }
+    if let Some(z) = &p.z {
+        out.push(p.zlabel.clone().unwrap_or_else(|| z.path.short_name(false)));
+    }
+    out
+}
+
 /// Light names in order of first use.
 fn sequence_lights(s: &SequenceBlock) -> Vec<String> {
     let mut out: Vec<String> = Vec::new();
@@ -1100,6 +1124,11 @@ pub enum Output {
         title: String,
         /// Series: label and value; the first is the x axis (for a heat map: x, y, z).
         series: Vec<(String, PathValue)>,
+        /// The series' names for a reader, one per series: given in the block or shortened
+        /// from the paths.
+        titles: Vec<String>,
+        /// The vertical axis's name: given, or the one quantity all curves show.
+        y_title: Option<String>,
         /// Logarithmic x axis.
         log_x: bool,
         /// Logarithmic y axis.
@@ -1214,15 +1243,26 @@ pub fn run(c: &Checked<'_>, opts: &RunOptions<'_>) -> RunOutcome {
                 let Some(Block::Plot(p)) = block_at(c.doc, *i) else {
                     continue;
                 };
+                let names = plot_names(p);
                 let mut series = Vec::new();
-                for path in std::iter::once(&p.x).chain(&p.y).chain(&p.z) {
+                let mut titles = Vec::new();
+                for (path, name) in std::iter::once(&p.x).chain(&p.y).chain(&p.z).zip(names) {
                     if failed.contains(&path.path.block) {
                         continue;
                     }
                     if let Ok(v) = results::eval(&path.path, &results, &c.values) {
                         series.push((path.text.clone(), v));
+                        titles.push(name);
                     }
                 }
+                let quantity = p.y.first().map(|y| y.path.quantity());
+                let y_title = match (&p.ylabel, &p.z) {
+                    (Some(l), _) => Some(l.clone()),
+                    (None, None) => {
+                        quantity.filter(|q| p.y.iter().all(|y| y.path.quantity() == *q))
+                    }
+                    (None, Some(_)) => None,
+                };
                 let title = p.title.clone().unwrap_or_else(|| {
                     format!(
                         "{} vs {}",
@@ -1238,6 +1278,8 @@ pub fn run(c: &Checked<'_>, opts: &RunOptions<'_>) -> RunOutcome {
                     Output::Plot {
                         title,
                         series,
+                        titles,
+                        y_title,
                         log_x: p.log_x,
                         log_y: p.log_y,
                         map: p.z.is_some(),

@@ -502,6 +502,14 @@ pub struct PlotBlock {
     pub log_x: bool,
     /// Log y.
     pub log_y: bool,
+    /// The horizontal axis's name.
+    pub xlabel: Option<String>,
+    /// The vertical axis's name.
+    pub ylabel: Option<String>,
+    /// A heat map colour's name.
+    pub zlabel: Option<String>,
+    /// Legend names, one per curve (empty: derived from the paths).
+    pub labels: Vec<String>,
 }
 
 /// A `table` block.
@@ -1963,6 +1971,41 @@ impl<'a> Reader<'a> {
         let title = self.title(t);
         let log_x = self.bool(t, "log_x");
         let log_y = self.bool(t, "log_y");
+        let text = |r: &mut Self, key: &str| {
+            get(t, key).and_then(|n| r.string(key, n).map(|(s, _)| s.to_string()))
+        };
+        let (xlabel, ylabel, zlabel) = (
+            text(self, "xlabel"),
+            text(self, "ylabel"),
+            text(self, "zlabel"),
+        );
+        let mut labels = Vec::new();
+        if let Some(n) = get(t, "labels")
+            && let Some(items) = self.array("labels", n)
+        {
+            labels = items
+                .iter()
+                .filter_map(|x| self.string("labels", x).map(|(s, _)| s.to_string()))
+                .collect();
+            if labels.len() != y.len() && !y.is_empty() {
+                self.error(
+                    n.span.clone(),
+                    format!(
+                        "`labels` names {} curve(s) but `y` has {}",
+                        labels.len(),
+                        y.len()
+                    ),
+                    "give one legend name per path of `y`, in the same order",
+                );
+            }
+            if z.is_some() {
+                self.error(
+                    n.span.clone(),
+                    "a heat map has no legend",
+                    "name its colour with `zlabel`",
+                );
+            }
+        }
         if y.is_empty() {
             return None;
         }
@@ -1973,6 +2016,10 @@ impl<'a> Reader<'a> {
             title,
             log_x,
             log_y,
+            xlabel,
+            ylabel,
+            zlabel,
+            labels,
         })
     }
 

@@ -180,6 +180,60 @@ pub struct ResultPath {
     pub at: Vec<(String, Span, String, Span)>,
 }
 
+impl ResultPath {
+    /// A short name for legends and axes: the observable or axis without the block and `final`
+    /// or `trace`, with its reduction and selections as written, e.g. `population(g2)` or
+    /// `population(e) at bias = 0.5 G`; `with_block` puts `BLOCK: ` in front.
+    pub fn short_name(&self, with_block: bool) -> String {
+        let core = match &self.target {
+            Target::Final(o, c) | Target::Trace(o, c) => match c {
+                Some(c) => format!("{}.{c}", o.canonical()),
+                None => o.canonical(),
+            },
+            Target::Time => "time".into(),
+            Target::Axis(a) => a.clone(),
+        };
+        let mut out = match self.reduce {
+            Some(r) => {
+                let word = match r {
+                    Reduce::Max => "max",
+                    Reduce::Min => "min",
+                    Reduce::ArgMax => "argmax",
+                    Reduce::ArgMin => "argmin",
+                };
+                format!("{word}({core})")
+            }
+            None => core,
+        };
+        for (k, (axis, _, value, _)) in self.at.iter().enumerate() {
+            out.push_str(if k == 0 { " at " } else { ", " });
+            out.push_str(&format!("{axis} = {value}"));
+        }
+        if with_block {
+            format!("{}: {out}", self.block)
+        } else {
+            out
+        }
+    }
+
+    /// The quantity a path shows, without levels or selections: `population`, `coherence.re`,
+    /// `scattering`, `time`, an axis name.
+    pub fn quantity(&self) -> String {
+        match &self.target {
+            Target::Final(o, c) | Target::Trace(o, c) => {
+                let head = o.canonical();
+                let head = head.split('(').next().unwrap_or("").to_string();
+                match c {
+                    Some(c) => format!("{head}.{c}"),
+                    None => head,
+                }
+            }
+            Target::Time => "time".into(),
+            Target::Axis(a) => a.clone(),
+        }
+    }
+}
+
 /// Parse a result path.
 pub fn parse_path(s: &str) -> Result<ResultPath, PathError> {
     let (main, at_part) = match find_word(s, "at") {

@@ -80,10 +80,12 @@ mod tests {
     fn curves_become_columns_with_units_and_maps_long_rows() {
         let col = |label: &str, dim: [i8; 5], values: Vec<f64>| Column {
             label: label.into(),
+            title: None,
             dim,
             values,
         };
         let curves = CellOutput::Curves {
+            y_title: None,
             title: "t".into(),
             x: col("scan.delta", [-1, 0, 0, 0, 0], vec![0.0, 1.0]),
             curves: vec![col("scan.final.population(g, e)", [0; 5], vec![0.5, 0.25])],

@@ -87,6 +87,10 @@ pub struct CellRecord {
 pub struct Column {
     /// The result path it came from.
     pub label: String,
+    /// Its name for a reader (a plot's legend or axis), when it differs from the path: given in
+    /// the plot block or shortened from the path. Absent in records of older builds.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub title: Option<String>,
     /// Dimension exponents.
     pub dim: [i8; 5],
     /// Values (SI).
@@ -105,6 +109,9 @@ pub enum CellOutput {
         x: Column,
         /// The curves, each as long as `x`.
         curves: Vec<Column>,
+        /// The vertical axis's name, when the plot block gives one.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        y_title: Option<String>,
         /// Logarithmic x axis.
         log_x: bool,
         /// Logarithmic y axis.
@@ -419,6 +426,7 @@ fn column(label: &str, v: &PathValue) -> Option<(Column, Option<Column>)> {
         PathValue::Scalar(x, d) => Some((
             Column {
                 label: label.into(),
+                title: None,
                 dim: d.0,
                 values: vec![*x],
             },
@@ -433,11 +441,13 @@ fn column(label: &str, v: &PathValue) -> Option<(Column, Option<Column>)> {
         } => Some((
             Column {
                 label: label.into(),
+                title: None,
                 dim: y_dim.0,
                 values: y.clone(),
             },
             Some(Column {
                 label: axis.clone(),
+                title: None,
                 dim: x_dim.0,
                 values: x.clone(),
             }),
@@ -447,13 +457,16 @@ fn column(label: &str, v: &PathValue) -> Option<(Column, Option<Column>)> {
 }
 
 /// A plot's data as a record output: curves over x, or a heat map oriented as the plot asks.
+/// `titles` name the series for a reader, one per series (x first).
 fn plot_output(
     title: &str,
     series: &[(String, PathValue)],
-    log_x: bool,
-    log_y: bool,
+    titles: &[String],
+    y_title: Option<&String>,
+    (log_x, log_y): (bool, bool),
     map: bool,
 ) -> Option<CellOutput> {
+    let named = |k: usize| titles.get(k).cloned();
     let (x_label, x_value) = series.first()?;
     if map {
         let (_, PathValue::Map { axes, z, dim }) = series.last()? else {
@@ -477,8 +490,9 @@ fn plot_output(
             }
             (&axes[1], &axes[0], t)
         };
-        let col = |a: &(String, Vec<f64>, crate::notebook::expr::Dim)| Column {
+        let col = |a: &(String, Vec<f64>, crate::notebook::expr::Dim), title| Column {
             label: a.0.clone(),
+            title,
             dim: a.2.0,
             values: a.1.clone(),
         };
@@ -486,11 +500,12 @@ fn plot_output(
             title: title.into(),
             x: Column {
                 label: x_label.clone(),
-                ..col(xa)
+                ..col(xa, named(0))
             },
-            y: col(ya),
+            y: col(ya, named(1)),
             z: Column {
                 label: z_label.clone(),
+                title: named(series.len() - 1),
                 dim: dim.0,
                 values: zs,
             },
@@ -499,6 +514,7 @@ fn plot_output(
     let x = match x_value {
         PathValue::Series { y, y_dim, .. } => Column {
             label: x_label.clone(),
+            title: named(0),
             dim: y_dim.0,
             values: y.clone(),
         },
@@ -506,12 +522,19 @@ fn plot_output(
     };
     let curves = series[1..]
         .iter()
-        .filter_map(|(l, v)| column(l, v).map(|c| c.0))
+        .enumerate()
+        .filter_map(|(k, (l, v))| {
+            column(l, v).map(|c| Column {
+                title: named(k + 1),
+                ..c.0
+            })
+        })
         .collect();
     Some(CellOutput::Curves {
         title: title.into(),
         x,
         curves,
+        y_title: y_title.cloned(),
         log_x,
         log_y,
     })
@@ -544,10 +567,19 @@ fn cells(doc: &Document, outcome: &RunOutcome) -> Vec<CellRecord> {
                             Output::Plot {
                                 title,
                                 series,
+                                titles,
+                                y_title,
                                 log_x,
                                 log_y,
                                 map,
-                            } => plot_output(title, series, *log_x, *log_y, *map),
+                            } => plot_output(
+                                title,
+                                series,
+                                titles,
+                                y_title.as_ref(),
+                                (*log_x, *log_y),
+                                *map,
+                            ),
                             Output::Table { title, columns } => Some(CellOutput::Table {
                                 title: title.clone(),
                                 columns: columns

@@ -227,6 +227,7 @@ fn plots(old: &Side<'_>, new: &Side<'_>) -> Result<String, RenderError> {
                     title,
                     x: xb,
                     curves: yb,
+                    y_title,
                     log_x,
                     log_y,
                 }),
@@ -240,14 +241,13 @@ fn plots(old: &Side<'_>, new: &Side<'_>) -> Result<String, RenderError> {
                     continue;
                 }
                 let traces = overlaid(xa, ya, xb, yb);
-                let svg = figure(plot::line_plot(
-                    title,
-                    &xb.label,
-                    &traces,
-                    *log_x,
-                    *log_y,
-                    &[],
-                ))?;
+                let axes = plot::Axes {
+                    x_label: plot::shown(xb),
+                    y_label: y_title.as_deref(),
+                    log_x: *log_x,
+                    log_y: *log_y,
+                };
+                let svg = figure(plot::line_plot(title, &traces, axes, &[]))?;
                 let _ = write!(out, "<figure class=\"fb-figure\">{svg}</figure>");
             }
             (
@@ -278,6 +278,7 @@ fn plots(old: &Side<'_>, new: &Side<'_>) -> Result<String, RenderError> {
                 {
                     let delta = Column {
                         label: format!("{} (new − old)", z.label),
+                        title: Some(format!("{} (new − old)", plot::shown(z))),
                         dim: z.dim,
                         values: za
                             .values
@@ -370,7 +371,7 @@ fn overlaid<'a>(
         ys.iter().map(move |y| Trace {
             x,
             y,
-            name: format!("{} · {}", y.label, if old { "old" } else { "new" }),
+            name: format!("{} · {}", plot::shown(y), if old { "old" } else { "new" }),
             colour: colour(&y.label),
             old,
         })

@@ -496,12 +496,19 @@ fn block(out: &mut String, record: &Record, cell: &CellRecord) -> Result<(), Ren
             title,
             x,
             curves,
+            y_title,
             log_x,
             log_y,
         }) => {
             let marks = plot_marks(record, x, curves);
             let drawn: Vec<plot::Mark> = marks.iter().map(|(m, _)| m.clone()).collect();
-            let svg = figure(plot::curves(title, x, curves, *log_x, *log_y, &drawn))?;
+            let axes = plot::Axes {
+                x_label: plot::shown(x),
+                y_label: y_title.as_deref(),
+                log_x: *log_x,
+                log_y: *log_y,
+            };
+            let svg = figure(plot::curves(title, x, curves, axes, &drawn))?;
             let _ = write!(
                 out,
                 "<figure class=\"fb-figure\">{svg}{}</figure>",

@@ -134,10 +134,15 @@ fn thin(points: Vec<(f64, f64)>) -> Vec<(f64, f64)> {
     out
 }
 
+/// A column's name for a reader: its title, else its result path.
+pub(crate) fn shown(c: &Column) -> &str {
+    c.title.as_deref().unwrap_or(&c.label)
+}
+
 /// The y scale and title of a plot's curves: scaled by the first curve's unit when all share its
-/// dimension, else in SI; titled with the curves' label when they all show one quantity (one
-/// curve, or its old and new versions), else "value".
-fn y_axis(curves: &[&Column]) -> (Scale, String) {
+/// dimension, else in SI; titled `y_label` when given, else with the curves' name when they all
+/// show one (one curve, or its old and new versions), else "value".
+fn y_axis(curves: &[&Column], y_label: Option<&str>) -> (Scale, String) {
     let Some(first) = curves.first() else {
         return (scale_for([0; 5], &[]), String::new());
     };
@@ -154,11 +159,11 @@ fn y_axis(curves: &[&Column]) -> (Scale, String) {
         .flat_map(|c| c.values.iter().copied())
         .collect();
     let s = scale_for(first.dim, &all);
-    let one_quantity = curves.iter().all(|c| c.label == first.label);
-    let label = if one_quantity {
-        first.label.as_str()
-    } else {
-        "value"
+    let one_quantity = curves.iter().all(|c| shown(c) == shown(first));
+    let label = match y_label {
+        Some(l) => l,
+        None if one_quantity => shown(first),
+        None => "value",
     };
     let title = axis_title(label, &s);
     (s, title)
@@ -211,13 +216,26 @@ pub(crate) struct Mark {
 const HELD: RGBColor = RGBColor(0x2e, 0x6b, 0x3a);
 const FAILED: RGBColor = RGBColor(0x9c, 0x2f, 0x1e);
 
+/// The axes of a line plot: log scales and the names of the two axes (x's name, and y's when
+/// the plot gives one).
+#[derive(Clone, Copy, Debug, Default)]
+pub(crate) struct Axes<'a> {
+    /// Horizontal axis's name.
+    pub x_label: &'a str,
+    /// Vertical axis's name, if given.
+    pub y_label: Option<&'a str>,
+    /// Logarithmic x.
+    pub log_x: bool,
+    /// Logarithmic y.
+    pub log_y: bool,
+}
+
 /// A line plot of `curves` over `x`, with a legend when there are several and `marks` on top.
 pub(crate) fn curves(
     title: &str,
     x: &Column,
     curves: &[Column],
-    log_x: bool,
-    log_y: bool,
+    axes: Axes<'_>,
     marks: &[Mark],
 ) -> Result<String, PlotError> {
     let traces: Vec<Trace> = curves
@@ -226,24 +244,27 @@ pub(crate) fn curves(
         .map(|(i, c)| Trace {
             x,
             y: c,
-            name: c.label.clone(),
+            name: shown(c).to_string(),
             colour: i,
             old: false,
         })
         .collect();
-    line_plot(title, &x.label, &traces, log_x, log_y, marks)
+    line_plot(title, &traces, axes, marks)
 }
 
-/// A line plot of `traces`, whose x columns share a dimension and whose axis is titled with
-/// `x_label`.
+/// A line plot of `traces`, whose x columns share a dimension, on `axes`.
 pub(crate) fn line_plot(
     title: &str,
-    x_label: &str,
     traces: &[Trace<'_>],
-    log_x: bool,
-    log_y: bool,
+    axes: Axes<'_>,
     marks: &[Mark],
 ) -> Result<String, PlotError> {
+    let Axes {
+        x_label,
+        y_label,
+        log_x,
+        log_y,
+    } = axes;
     if let Some(t) = traces.iter().find(|t| t.y.values.len() != t.x.values.len()) {
         return Err(PlotError::Shape(format!(
             "curve `{}` has {} values for {} x values",
@@ -257,7 +278,7 @@ pub(crate) fn line_plot(
         .flat_map(|t| t.x.values.iter().copied())
         .collect();
     let sx = scale_for(traces.first().map_or([0; 5], |t| t.x.dim), &all_x);
-    let (sy, y_title) = y_axis(&traces.iter().map(|t| t.y).collect::<Vec<_>>());
+    let (sy, y_title) = y_axis(&traces.iter().map(|t| t.y).collect::<Vec<_>>(), y_label);
     let keep = |v: f64, log: bool| v.is_finite() && (!log || v > 0.0);
     let series: Vec<Vec<(f64, f64)>> = traces
         .iter()
@@ -841,8 +862,8 @@ pub(crate) fn heat_map(
         chart
             .configure_mesh()
             .disable_mesh()
-            .x_desc(axis_title(&x.label, &sx))
-            .y_desc(axis_title(&y.label, &sy))
+            .x_desc(axis_title(shown(x), &sx))
+            .y_desc(axis_title(shown(y), &sy))
             .x_label_formatter(&ticks((lo_x, hi_x)))
             .y_label_formatter(&ticks((lo_y, hi_y)))
             .label_style((FONT, LABEL_SIZE))
@@ -871,7 +892,7 @@ pub(crate) fn heat_map(
                 push_cell(&mut paths, r);
             }
         }
-        bar_levels = colour_bar(&bar, (z0, z1), stops, &axis_title(&z.label, &sz))?;
+        bar_levels = colour_bar(&bar, (z0, z1), stops, &axis_title(shown(z), &sz))?;
         root.present().map_err(draw_err)?;
     }
     let mut cells = String::from("<g shape-rendering=\"crispEdges\">");
@@ -950,9 +971,19 @@ fn colour_bar(
 mod tests {
     use super::*;
 
+    fn axes(log_x: bool, log_y: bool) -> Axes<'static> {
+        Axes {
+            x_label: "x",
+            y_label: None,
+            log_x,
+            log_y,
+        }
+    }
+
     fn col(label: &str, dim: [i8; 5], values: Vec<f64>) -> Column {
         Column {
             label: label.into(),
+            title: None,
             dim,
             values,
         }
@@ -975,7 +1006,11 @@ mod tests {
             [0; 5],
             (0..50).map(|i| (i as f64 * 0.1).cos()).collect(),
         );
-        let svg = curves("t", &x, &[a, b], false, false, &[]).expect("drawn");
+        let axes = Axes {
+            x_label: shown(&x),
+            ..axes(false, false)
+        };
+        let svg = curves("t", &x, &[a, b], axes, &[]).expect("drawn");
         assert!(svg.contains("width=\"720\"") && svg.contains("height=\"420\""));
         assert!(svg.contains("time (µs)"), "{svg}");
         assert!(svg.contains("p(g)"));
@@ -985,7 +1020,7 @@ mod tests {
     fn log_axes_skip_non_positive_values() {
         let x = col("rabi", [-1, 0, 0, 0, 0], vec![0.0, 1e3, 1e4, 1e5]);
         let y = col("rate", [-1, 0, 0, 0, 0], vec![-1.0, 1.0, 10.0, 100.0]);
-        assert!(curves("l", &x, std::slice::from_ref(&y), true, true, &[]).is_ok());
+        assert!(curves("l", &x, std::slice::from_ref(&y), axes(true, true), &[]).is_ok());
         // A mark whose range is open or non-positive on a log axis is clipped, not lost.
         let m = Mark {
             number: 1,
@@ -995,7 +1030,7 @@ mod tests {
             near: None,
             passed: true,
         };
-        let svg = curves("l", &x, &[y], true, true, &[m]).unwrap();
+        let svg = curves("l", &x, &[y], axes(true, true), &[m]).unwrap();
         assert!(svg.contains("class=\"fb-marks\""), "{svg}");
     }
 
@@ -1017,7 +1052,14 @@ mod tests {
             aim(Place::Level, None, Some(3.0), None, false),
             aim(Place::Position, Some(9.0), Some(10.0), None, true),
         ];
-        let svg = curves("c", &x, std::slice::from_ref(&y), false, false, &marks).unwrap();
+        let svg = curves(
+            "c",
+            &x,
+            std::slice::from_ref(&y),
+            axes(false, false),
+            &marks,
+        )
+        .unwrap();
         let g = &svg[svg.find("<g class=\"fb-marks\"").expect("marks")..];
         assert_eq!(g.matches("<text").count(), 3);
         assert_eq!(g.matches("<rect").count(), 2, "two bands");
@@ -1027,7 +1069,7 @@ mod tests {
         );
         assert_eq!(g.matches("l5 5l-5 5l-5 -5z").count(), 1, "one aim");
         // The y ticks now run past 3 (the level), though the curve stops at 1.
-        let plain = curves("c", &x, std::slice::from_ref(&y), false, false, &[]).unwrap();
+        let plain = curves("c", &x, std::slice::from_ref(&y), axes(false, false), &[]).unwrap();
         let tick_3 = "\n3\n</text>";
         assert!(!plain.contains(tick_3) && svg.contains(tick_3), "{svg}");
     }
@@ -1083,10 +1125,11 @@ mod tests {
         };
         let svg = line_plot(
             "o",
-            "t",
             &[trace(&a, true), trace(&b, false)],
-            false,
-            false,
+            Axes {
+                x_label: "t",
+                ..Axes::default()
+            },
             &[],
         )
         .unwrap();
