@@ -107,7 +107,10 @@ fn example_reports_are_self_contained_and_embed_their_record() {
     }
     let chevron = std::fs::read_to_string(dir.join("rabi-chevron.html")).unwrap();
     assert!(chevron.contains("fb-figure fb-map"));
-    assert!(chevron.contains("detuning Δ/2π (kHz)"), "frequency axis in kHz");
+    assert!(
+        chevron.contains("detuning Δ/2π (kHz)"),
+        "frequency axis in kHz"
+    );
     assert!(chevron.contains("pulse length (µs)"), "time axis in µs");
     assert!(chevron.contains("All 3 checks held"));
 }
