@@ -30,7 +30,8 @@ fn base(dim: Dim) -> Option<(f64, String, bool)> {
         Dim::TIME => unit("s"),
         Dim::LENGTH => unit("m"),
         Dim::TEMPERATURE => unit("K"),
-        Dim::MAGNETIC_FIELD => unit("T"),
+        // Bias fields are quoted in gauss: 1 T = 10⁴ G.
+        Dim::MAGNETIC_FIELD => Some((1e4, "G".into(), false)),
         Dim::ELECTRIC_FIELD => unit("V/m"),
         Dim::VOLTAGE => unit("V"),
         Dim::POWER => unit("W"),

@@ -109,7 +109,8 @@ pub fn format_quantity(value: f64, dim: Dim) -> String {
         Dim::TIME => prefixed(value, "s", false),
         Dim::LENGTH => prefixed(value, "m", false),
         Dim::TEMPERATURE => prefixed(value, "K", false),
-        Dim::MAGNETIC_FIELD => prefixed(value, "T", false),
+        // Bias and trap fields are quoted in gauss: 1 G = 10⁻⁴ T.
+        Dim::MAGNETIC_FIELD => prefixed(value * 1e4, "G", false),
         Dim::ELECTRIC_FIELD => prefixed(value, "V/m", false),
         Dim::VOLTAGE => prefixed(value, "V", false),
         Dim::POWER => prefixed(value, "W", false),
@@ -197,7 +198,8 @@ mod tests {
         assert_eq!(format_quantity(0.99991, Dim::DIMENSIONLESS), "0.9999");
         assert_eq!(format_quantity(12346.0, Dim::DIMENSIONLESS), "1.235×10⁴");
         assert_eq!(format_quantity(0.0, Dim::TIME), "0 s");
-        assert_eq!(format_quantity(3e-4, Dim::MAGNETIC_FIELD), "300.0 µT");
+        assert_eq!(format_quantity(3e-4, Dim::MAGNETIC_FIELD), "3.000 G");
+        assert_eq!(format_quantity(1e-5, Dim::MAGNETIC_FIELD), "100.0 mG");
         // Rounding up to the next prefix: 999.96 ns is 1.000 µs at 4 figures.
         assert_eq!(format_quantity(999.96e-9, Dim::TIME), "1.000 µs");
         assert_eq!(format_quantity(1.443e-25, Dim::MASS), "1.443×10⁻²⁵ kg");
