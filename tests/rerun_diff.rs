@@ -130,6 +130,19 @@ fn html_text(s: &str) -> String {
         .replace('\'', "&#39;")
 }
 
+/// `fieldbook diff A B EXTRA… --html OUT`.
+fn diff_page(a: &Path, b: &Path, out: &Path, extra: &[&std::ffi::OsStr]) -> std::process::Output {
+    bin()
+        .arg("diff")
+        .arg(a)
+        .arg(b)
+        .args(extra)
+        .arg("--html")
+        .arg(out)
+        .output()
+        .unwrap()
+}
+
 /// Runs `example` into `dir/a`, re-runs it with `set` into `dir/b`, and returns both records.
 fn two_versions(dir: &Path, example: &str, set: &str) -> (std::path::PathBuf, std::path::PathBuf) {
     let f = dir.join(example);
@@ -167,14 +180,7 @@ fn the_diff_page_lists_every_change_and_overlays_the_curves() {
     let (ra, rb) = two_versions(&dir, "steady-state-line.md", "rabi=2π × 9 MHz");
     let out = dir.join("diff.html");
     // The new side is the HTML report: diff reads the record embedded in it.
-    let o = bin()
-        .arg("diff")
-        .arg(&ra)
-        .arg(&rb)
-        .arg("--html")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = diff_page(&ra, &rb, &out, &[]);
     let t = text(&o);
     assert_eq!(o.status.code(), Some(1), "{t}");
     assert!(t.contains(&format!("diff page: {}", out.display())), "{t}");
@@ -211,14 +217,7 @@ fn the_diff_page_lists_every_change_and_overlays_the_curves() {
     assert!(!page.contains("url("));
 
     // Equal records: exit 0 and a page that says so; the page is replaced, being ours.
-    let o = bin()
-        .arg("diff")
-        .arg(&ra)
-        .arg(&ra)
-        .arg("--html")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = diff_page(&ra, &ra, &out, &[]);
     assert_eq!(o.status.code(), Some(0), "{}", text(&o));
     let page = std::fs::read_to_string(&out).unwrap();
     assert!(page.contains("Equal: the records agree within tolerance"));
@@ -226,37 +225,16 @@ fn the_diff_page_lists_every_change_and_overlays_the_curves() {
 
     // Anything else at that path is kept: a record, or a page of one's own.
     let before = std::fs::read(&ra).unwrap();
-    let o = bin()
-        .arg("diff")
-        .arg(&ra)
-        .arg(&rb)
-        .arg("--html")
-        .arg(&ra)
-        .output()
-        .unwrap();
+    let o = diff_page(&ra, &rb, &ra, &[]);
     assert_eq!(o.status.code(), Some(2), "{}", text(&o));
     assert!(text(&o).contains("--force"), "{}", text(&o));
     assert_eq!(std::fs::read(&ra).unwrap(), before);
     let mine = dir.join("mine.html");
     std::fs::write(&mine, "<p>notes</p>").unwrap();
-    let o = bin()
-        .arg("diff")
-        .arg(&ra)
-        .arg(&rb)
-        .arg("--html")
-        .arg(&mine)
-        .output()
-        .unwrap();
+    let o = diff_page(&ra, &rb, &mine, &[]);
     assert_eq!(o.status.code(), Some(2));
     assert_eq!(std::fs::read_to_string(&mine).unwrap(), "<p>notes</p>");
-    let o = bin()
-        .arg("diff")
-        .arg(&ra)
-        .arg(&rb)
-        .args(["--force", "--html"])
-        .arg(&mine)
-        .output()
-        .unwrap();
+    let o = diff_page(&ra, &rb, &mine, &["--force".as_ref()]);
     assert_eq!(o.status.code(), Some(1), "{}", text(&o));
     assert!(
         std::fs::read_to_string(&mine)
@@ -276,16 +254,7 @@ fn the_diff_page_lists_every_change_and_overlays_the_curves() {
     let tpl = dir.join("tpl");
     std::fs::create_dir_all(&tpl).unwrap();
     std::fs::write(tpl.join("diff.html"), "<main>house diff {{summary}}</main>").unwrap();
-    let o = bin()
-        .arg("diff")
-        .arg(&ra)
-        .arg(&rb)
-        .arg("--html")
-        .arg(&out)
-        .arg("--templates")
-        .arg(&tpl)
-        .output()
-        .unwrap();
+    let o = diff_page(&ra, &rb, &out, &["--templates".as_ref(), tpl.as_os_str()]);
     assert_eq!(o.status.code(), Some(1));
     let page = std::fs::read_to_string(&out).unwrap();
     assert!(
@@ -299,14 +268,7 @@ fn heat_maps_are_compared_side_by_side_and_by_their_difference() {
     let dir = temp_dir("maps");
     let (ra, rb) = two_versions(&dir, "rabi-chevron.md", "rabi=2π × 30 kHz");
     let out = dir.join("maps.html");
-    let o = bin()
-        .arg("diff")
-        .arg(&ra)
-        .arg(&rb)
-        .arg("--html")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = diff_page(&ra, &rb, &out, &[]);
     assert_eq!(o.status.code(), Some(1), "{}", text(&o));
     let page = std::fs::read_to_string(&out).unwrap();
     assert_eq!(

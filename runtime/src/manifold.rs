@@ -72,12 +72,17 @@ impl LineAtom {
 }
 
 /// A doubled angular momentum as written in level names: `2`, `-1`, `3/2`, `-1/2`.
-fn half_name(twice: i32) -> String {
+pub fn half_name(twice: i32) -> String {
     if twice % 2 == 0 {
         format!("{}", twice / 2)
     } else {
         format!("{twice}/2")
     }
+}
+
+/// The name of a hyperfine level, the prefix of its sublevels' names: `g2`, `e3/2`.
+pub fn group_name(excited: bool, two_f: i32) -> String {
+    format!("{}{}", if excited { 'e' } else { 'g' }, half_name(two_f))
 }
 
 /// ⟨J m_J|e r_q|J' m_J'⟩ / ⟨J‖e r‖J'⟩ (doubled arguments), Steck's Wigner–Eckart form.
@@ -159,7 +164,7 @@ impl Line {
             if !keep_ground(f) {
                 continue;
             }
-            let name = format!("g{}_m{}", half_name(f), half_name(s.two_m));
+            let name = format!("{}_m{}", group_name(false, f), half_name(s.two_m));
             g_ids.push((b.level(name.clone(), s.energy), s));
             labels.push(SublevelLabel {
                 excited: false,
@@ -174,7 +179,7 @@ impl Line {
             if !keep_excited(f) {
                 continue;
             }
-            let name = format!("e{}_m{}", half_name(f), half_name(s.two_m));
+            let name = format!("{}_m{}", group_name(true, f), half_name(s.two_m));
             e_ids.push((b.level(name.clone(), self.omega + s.energy), s));
             labels.push(SublevelLabel {
                 excited: true,

@@ -135,8 +135,8 @@ impl Hyperfine {
         h
     }
 
-    /// Every sublevel at field `b_field` (T), sorted by energy.
-    pub fn sublevels(&self, b_field: f64) -> Result<Vec<Sublevel>, Error> {
+    /// Refuses negative J or I and non-finite constants or field.
+    fn check(&self, b_field: f64) -> Result<(), Error> {
         if self.two_j < 0
             || self.two_i < 0
             || !b_field.is_finite()
@@ -149,6 +149,12 @@ impl Hyperfine {
                 hint: "J, I ≥ 0 and finite A, B and field",
             });
         }
+        Ok(())
+    }
+
+    /// Every sublevel at field `b_field` (T), sorted by energy.
+    pub fn sublevels(&self, b_field: f64) -> Result<Vec<Sublevel>, Error> {
+        self.check(b_field)?;
         let basis = self.basis();
         let h = self.hamiltonian(b_field);
         // H conserves m = m_J + m_I: diagonalise each m block on its own, so that every
@@ -230,8 +236,8 @@ impl Hyperfine {
     /// The weak-field sublevels |F, m⟩ = Σ ⟨J m_J I m_I|F m⟩ |m_J, m_I⟩ with energies
     /// E_F + g_F m μ_B B/ħ ([`ZeemanModel::Linear`]), sorted by energy.
     pub fn sublevels_linear(&self, b_field: f64) -> Result<Vec<Sublevel>, Error> {
-        // The same input checks as the full model.
-        self.sublevels(0.0)?;
+        // The full model's checks of the constants, without its diagonalisation.
+        self.check(0.0)?;
         if !b_field.is_finite() {
             return Err(Error::NonFinite {
                 what: "the magnetic field".into(),

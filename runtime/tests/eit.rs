@@ -49,29 +49,15 @@ impl Lambda {
 
     /// ρ₃₁ in the solver's frame at each probe detuning, from the steady-state solver.
     fn rho31(&self, probe: f64, coupling: f64, delta_c: f64, deltas: &[f64]) -> Vec<C64> {
-        let field = |name: &str, tr: usize, rabi: f64, detuning: f64, pol: Polarization| {
-            Field::new(
-                name,
-                Carrier::Detuning {
-                    transition: tr,
-                    detuning,
-                },
-                Strength::Rabi {
-                    transition: tr,
-                    rabi,
-                },
-            )
-            .with_polarization(pol)
-        };
         let sp = SteadyPrepared::new(&SteadyProblem {
             atom: self.atom.clone(),
             fields: vec![
-                field("probe", 0, probe, 0.0, Polarization::sigma_plus()),
-                field(
+                beam("probe", 0, 0.0, probe, Polarization::sigma_plus()),
+                beam(
                     "coupling",
                     1,
-                    coupling,
                     delta_c,
+                    coupling,
                     Polarization::sigma_minus(),
                 ),
             ],

@@ -5,7 +5,7 @@
 
 use std::collections::{HashMap, HashSet};
 
-use fieldbook_runtime::manifold::Line;
+use fieldbook_runtime::manifold::{Line, group_name, half_name};
 use fieldbook_runtime::prelude::*;
 use fieldbook_runtime::species::{DLine, SPECIES, Species};
 use fieldbook_runtime::state::State as RtState;
@@ -156,8 +156,7 @@ fn parse_group(name: &str) -> Option<(bool, Option<i32>)> {
         Some(_) => return None,
         None => rest.parse::<i32>().ok()?.checked_mul(2)?,
     };
-    (rest.bytes().all(|c| c.is_ascii_digit() || c == b'/') && two_f >= 0)
-        .then_some((excited, Some(two_f)))
+    (two_f >= 0).then_some((excited, Some(two_f)))
 }
 
 /// What a light's detuning and strength refer to.
@@ -167,20 +166,6 @@ enum Reference {
     Transition(TransitionId),
     /// A hyperfine pair of a Zeeman atom, by its zero-field angular frequency (rad/s).
     Hyperfine(f64),
-}
-
-/// A doubled angular momentum as written in names: `2`, `3/2`.
-fn half(twice: i32) -> String {
-    if twice % 2 == 0 {
-        (twice / 2).to_string()
-    } else {
-        format!("{twice}/2")
-    }
-}
-
-/// The name of a hyperfine level's group: `g2`, `e3/2`.
-fn group_name(excited: bool, two_f: i32) -> String {
-    format!("{}{}", if excited { 'e' } else { 'g' }, half(two_f))
 }
 
 /// The most sublevels a Zeeman atom may expand into (a density matrix of 256² entries).
@@ -707,9 +692,9 @@ impl Builder<'_> {
                             m.j.1.clone(),
                             format!(
                                 "J = {} cannot come from L = {} and S = {}",
-                                half(m.j.0),
-                                half(l.0),
-                                half(s.0)
+                                half_name(m.j.0),
+                                half_name(l.0),
+                                half_name(s.0)
                             ),
                         )
                         .with_hint("|L − S| ≤ J ≤ L + S, and J = 0 has no magnetic moment; or give `g_J`"),
@@ -1347,19 +1332,20 @@ pub fn problem(
         Some(c) => b.positive(c, Dim::FREQUENCY, "the cutoff"),
         None => Some(f64::INFINITY),
     };
-    let velocity = match &ev.velocity {
+    // `None` when the velocity could not be evaluated (reported), `Some(None)` at rest.
+    let velocity: Option<Option<([f64; 3], &Span)>> = match &ev.velocity {
         Some((exs, span)) => {
             let v: Option<Vec<f64>> = exs
                 .iter()
                 .map(|e| b.quantity(e, Dim::VELOCITY, "the velocity"))
                 .collect();
-            v.map(|v| (Some([v[0], v[1], v[2]]), span.clone()))
+            v.map(|v| Some(([v[0], v[1], v[2]], span)))
         }
-        None => Some((None, inputs.span.clone())),
+        None => Some(None),
     };
     let mut fields: Option<Vec<Field>> = fields.into_iter().collect();
     // A moving atom sees each light Doppler shifted.
-    if let (Some(fs), Some((Some(v), vspan))) = (&mut fields, &velocity) {
+    if let (Some(fs), Some(Some((v, vspan)))) = (&mut fields, velocity) {
         for (f, (lname, light)) in fs.iter_mut().zip(&inputs.lights) {
             if light.direction.is_none() {
                 b.diags.push(
@@ -1371,7 +1357,7 @@ pub fn problem(
                 );
                 return None;
             }
-            match f.doppler_shifted(&atom.atom, *v) {
+            match f.doppler_shifted(&atom.atom, v) {
                 Ok(shifted) => *f = shifted,
                 Err(e) => {
                     b.diags.push(Diagnostic::error(
@@ -1383,7 +1369,7 @@ pub fn problem(
             }
         }
     }
-    velocity.as_ref()?;
+    velocity?;
     let (fields, observables, cutoff) = (fields, observables, cutoff);
     if ev.steady {
         return Some(Built::Steady(SteadyProblem {

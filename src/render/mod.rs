@@ -442,6 +442,15 @@ fn plot_marks<'r>(
     out
 }
 
+/// The style class and the word for a check's outcome.
+fn status(passed: bool) -> (&'static str, &'static str) {
+    if passed {
+        ("fb-held", "held")
+    } else {
+        ("fb-failed", "FAILED")
+    }
+}
+
 /// The caption under a plot that lists the checks drawn on it.
 fn marks_caption(marks: &[(plot::Mark, &CheckRecord)]) -> String {
     if marks.is_empty() {
@@ -449,11 +458,7 @@ fn marks_caption(marks: &[(plot::Mark, &CheckRecord)]) -> String {
     }
     let mut out = String::from("<figcaption class=\"fb-marks\">Checks drawn on this plot:<ol>");
     for (m, c) in marks {
-        let (class, word) = if c.passed {
-            ("fb-held", "held")
-        } else {
-            ("fb-failed", "FAILED")
-        };
+        let (class, word) = status(c.passed);
         let _ = write!(
             out,
             "<li class=\"{class}\" value=\"{}\"><code>{}</code> (line {}): expected {}, got {}, <b>{word}</b></li>",
@@ -576,11 +581,7 @@ fn checks(out: &mut String, record: &Record, indices: &[usize]) {
          <th>got</th><th>line</th></tr>",
     );
     for c in indices.iter().filter_map(|&i| record.checks.get(i)) {
-        let (class, word) = if c.passed {
-            ("fb-held", "held")
-        } else {
-            ("fb-failed", "FAILED")
-        };
+        let (class, word) = status(c.passed);
         let _ = write!(
             out,
             "<tr class=\"{class}\"><td><span class=\"fb-status\">{word}</span></td>\

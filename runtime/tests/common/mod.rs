@@ -53,8 +53,13 @@ pub fn sigma_minus_dipole() -> [C64; 3] {
 
 /// A field given by its Rabi frequency Ω and detuning Δ on one transition (π polarised).
 pub fn drive(tr: TransitionId, detuning: f64, rabi: f64) -> Field {
+    beam("drive", tr, detuning, rabi, Polarization::pi())
+}
+
+/// A field named `name` with Rabi frequency Ω and detuning Δ on transition `tr`, polarised `pol`.
+pub fn beam(name: &str, tr: TransitionId, detuning: f64, rabi: f64, pol: Polarization) -> Field {
     Field::new(
-        "drive",
+        name,
         Carrier::Detuning {
             transition: tr,
             detuning,
@@ -64,6 +69,7 @@ pub fn drive(tr: TransitionId, detuning: f64, rabi: f64) -> Field {
             rabi,
         },
     )
+    .with_polarization(pol)
 }
 
 /// A square envelope of duration `d` (s).
@@ -524,20 +530,6 @@ pub fn stirap_lambda(omega: f64, sigma: f64, t_pump: f64, t_stokes: f64, t_end: 
     let tp = b.transition_with_dipole(g, x, sigma_plus_dipole());
     let ts = b.transition_with_dipole(r, x, sigma_minus_dipole());
     let atom = b.build().expect("Λ atom");
-    let beam = |name: &str, tr, pol| {
-        Field::new(
-            name,
-            Carrier::Detuning {
-                transition: tr,
-                detuning: 0.0,
-            },
-            Strength::Rabi {
-                transition: tr,
-                rabi: omega,
-            },
-        )
-        .with_polarization(pol)
-    };
     let gauss = |centre: f64| {
         Envelope::new(
             Shape::custom(move |t: f64| (-(t - centre).powi(2) / (2.0 * sigma * sigma)).exp()),
@@ -554,8 +546,8 @@ pub fn stirap_lambda(omega: f64, sigma: f64, t_pump: f64, t_stokes: f64, t_end: 
     Problem::new(
         atom,
         vec![
-            beam("pump", tp, Polarization::sigma_plus()),
-            beam("stokes", ts, Polarization::sigma_minus()),
+            beam("pump", tp, 0.0, omega, Polarization::sigma_plus()),
+            beam("stokes", ts, 0.0, omega, Polarization::sigma_minus()),
         ],
         seq,
         initial,
@@ -617,27 +609,19 @@ pub fn rb87_d2_pumping(pi_admixture: f64) -> Pumping {
     let cycling_tr = transition(stretched, cycling);
     let gamma = line.gamma;
     let pump_rabi = gamma / 2f64.sqrt();
-    let beam = |name: &str, tr, rabi, pol| {
-        Field::new(
-            name,
-            Carrier::Detuning {
-                transition: tr,
-                detuning: 0.0,
-            },
-            Strength::Rabi {
-                transition: tr,
-                rabi,
-            },
-        )
-        .with_polarization(pol)
-    };
     let z = C64::new(0.0, 0.0);
     let pump_pol = Polarization::new([z, C64::new(pi_admixture, 0.0), C64::new(1.0, 0.0)])
         .expect("pump polarisation");
     Pumping {
         fields: vec![
-            beam("pump", cycling_tr, pump_rabi, pump_pol),
-            beam("repump", repump_tr, 0.5 * gamma, Polarization::sigma_plus()),
+            beam("pump", cycling_tr, 0.0, pump_rabi, pump_pol),
+            beam(
+                "repump",
+                repump_tr,
+                0.0,
+                0.5 * gamma,
+                Polarization::sigma_plus(),
+            ),
         ],
         line: la,
         cutoff: TAU * 1e9,
